@@ -1,0 +1,129 @@
+"""The ``hbmodel`` command: a thin argparse layer over the library.
+
+Each sub-command lives in ``hbmodel/commands/<name>.py`` and exposes
+``NAME``, ``HELP``, ``add_arguments(parser)`` and ``run(args) -> int``.
+Every command accepts ``--config FILE.toml`` whose keys are the command's long
+option names (dashes or underscores); flags given on the command line win.
+
+Errors the user can fix (bad values, missing files, unreadable formats) are
+reported as one line on stderr with exit status 2 -- never a traceback.
+"""
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from . import __version__
+
+#: Sub-command modules, in the order ``hbmodel --help`` lists them.
+COMMANDS = ("predict", "mock", "fit", "distance", "classify", "batch", "demo")
+
+EXIT_USAGE = 2
+
+
+class UserError(Exception):
+    """An error caused by the user's input; reported as one line, exit 2."""
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # one line, exit 2 (argparse's own convention too)
+        self.exit(EXIT_USAGE, f"hbmodel: error: {message}\n")
+
+
+def _load_config(path: str) -> dict:
+    import tomllib
+
+    try:
+        with open(path, "rb") as fh:
+            cfg = tomllib.load(fh)
+    except FileNotFoundError:
+        raise UserError(f"config file not found: {path}") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise UserError(f"config file {path} is not valid TOML: {exc}") from None
+    return {str(k).replace("-", "_"): v for k, v in cfg.items()}
+
+
+def _apply_config(parser: argparse.ArgumentParser, argv: list[str], cfg: dict):
+    """Use config values as parser defaults so that explicit flags override them."""
+    known = {a.dest: a for a in parser._actions}
+    unknown = sorted(set(cfg) - set(known))
+    if unknown:
+        raise UserError(f"unknown option(s) in config file: {', '.join(unknown)}")
+    defaults = {}
+    for key, value in cfg.items():
+        action = known[key]
+        if isinstance(value, list) and action.nargs in (None, "?"):
+            value = ",".join(str(v) for v in value)
+        if action.type is not None and isinstance(value, str):
+            value = action.type(value)
+        defaults[key] = value
+        if action.required:
+            action.required = False
+    parser.set_defaults(**defaults)
+    missing = [a.dest for a in parser._actions if a.required and a.dest not in defaults]
+    return missing
+
+
+def build_parser() -> tuple[argparse.ArgumentParser, dict]:
+    parser = _Parser(prog="hbmodel", description=__doc__.splitlines()[0])
+    parser.add_argument("--version", action="version", version=f"hbmodel {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    modules = {}
+    for name in COMMANDS:
+        try:
+            mod = importlib.import_module(f"hbmodel.commands.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"hbmodel.commands.{name}":
+                continue  # command not built yet
+            raise
+        p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP),
+                           formatter_class=argparse.RawDescriptionHelpFormatter)
+        p.add_argument("--config", metavar="FILE.toml",
+                       help="read options from a TOML file (command-line flags override)")
+        mod.add_arguments(p)
+        modules[mod.NAME] = (mod, p)
+    return parser, modules
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    parser, modules = build_parser()
+    try:
+        # First pass: find the command and a possible --config file.
+        pre, _ = parser.parse_known_args(argv) if argv and not argv[0].startswith("-") else (None, None)
+        if pre is not None and pre.command in modules:
+            mod, sub = modules[pre.command]
+            cfg_path = _find_config(argv)
+            if cfg_path:
+                _apply_config(sub, argv, _load_config(cfg_path))
+        args = parser.parse_args(argv)
+        if not args.command:
+            parser.print_help()
+            return EXIT_USAGE
+        mod, _ = modules[args.command]
+        return int(mod.run(args) or 0)
+    except SystemExit as exc:  # argparse's own exits (help, usage errors)
+        return int(exc.code or 0) if not isinstance(exc.code, str) else EXIT_USAGE
+    except (UserError, ValueError, OSError, KeyError) as exc:
+        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        if isinstance(exc, KeyError):
+            msg = f"missing key or column: {msg}"
+        print(f"hbmodel: error: {msg}", file=sys.stderr)
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        print("hbmodel: interrupted", file=sys.stderr)
+        return 130
+
+
+def _find_config(argv: list[str]) -> str | None:
+    for i, a in enumerate(argv):
+        if a == "--config" and i + 1 < len(argv):
+            return argv[i + 1]
+        if a.startswith("--config="):
+            return a.split("=", 1)[1]
+    return None
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

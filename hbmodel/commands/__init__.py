@@ -1,0 +1,1 @@
+"""One module per ``hbmodel`` sub-command (see :mod:`hbmodel.cli`)."""

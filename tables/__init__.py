@@ -1,0 +1,1 @@
+"""Calibration tables shipped with hbmodel (each file's header names its source)."""
