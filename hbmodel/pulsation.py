@@ -1,0 +1,65 @@
+"""RR Lyrae pulsation: instability strip, mode assignment and periods.
+
+* Strip edges linear in log L and log M (from memory of the pulsation models of
+  Marconi et al. 2015, ApJ 808, 50): first-overtone blue edge (hot limit) and
+  fundamental red edge (cool limit); inside the "either-or" zone the mode is
+  assigned by which side of its midpoint the star lies (a simple hysteresis-free
+  choice).
+* Periods: van Albada & Baker 1971, ApJ 169, 311:
+  ``log P_F = 11.497 + 0.84 log L - 0.68 log M - 3.48 log Teff`` (days);
+  first-overtone periods ``log P_1 = log P_F - 0.127``; fundamentalised
+  periods add 0.127 back (common practice).
+Valid for HB luminosities (log L 1.3-2.3) and masses 0.45-0.9 Msun.
+"""
+from __future__ import annotations
+
+import functools
+
+import numpy as np
+
+from ._tables import read_table
+
+__all__ = ["strip_edges", "pulsation_mode", "period_days", "fundamentalised_period_days",
+           "MODE_NONE", "MODE_RRAB", "MODE_RRC"]
+
+MODE_NONE, MODE_RRAB, MODE_RRC = 0, 1, 2
+
+
+@functools.lru_cache(maxsize=None)
+def _c() -> dict:
+    return {k: float(v[0]) for k, v in read_table("pulsation.csv").items()}
+
+
+def _edge(name, logl, mass):
+    c = _c()
+    return c[f"{name}_a"] + c[f"{name}_b"] * np.asarray(logl, float) + c[f"{name}_c"] * np.log10(np.asarray(mass, float))
+
+
+def strip_edges(logl, mass_msun):
+    """(log Teff of the first-overtone blue edge, log Teff of the fundamental red edge)."""
+    return _edge("fobe", logl, mass_msun), _edge("fre", logl, mass_msun)
+
+
+def pulsation_mode(logteff, logl, mass_msun):
+    """0 outside the strip, 1 for fundamental (RRab), 2 for first overtone (RRc)."""
+    logteff = np.asarray(logteff, float)
+    blue, red = strip_edges(logl, mass_msun)
+    inside = (logteff <= blue) & (logteff >= red)
+    mid = 0.5 * (_edge("fbe", logl, mass_msun) + _edge("fore", logl, mass_msun))
+    return np.where(inside, np.where(logteff > mid, MODE_RRC, MODE_RRAB), MODE_NONE).astype(np.int8)
+
+
+def fundamentalised_period_days(logl, mass_msun, logteff):
+    """Fundamental-mode period from van Albada & Baker (1971)."""
+    c = _c()
+    logp = (c["vab_a"] + c["vab_l"] * np.asarray(logl, float) + c["vab_m"] * np.log10(np.asarray(mass_msun, float))
+            + c["vab_t"] * np.asarray(logteff, float))
+    return 10.0 ** logp
+
+
+def period_days(logl, mass_msun, logteff, mode):
+    """Observed period for the assigned mode (NaN outside the strip)."""
+    pf = fundamentalised_period_days(logl, mass_msun, logteff)
+    mode = np.asarray(mode)
+    p = np.where(mode == MODE_RRC, pf * 10.0 ** _c()["log_p1_p0"], pf)
+    return np.where(mode == MODE_NONE, np.nan, p)
