@@ -66,7 +66,8 @@ def _apply_config(parser: argparse.ArgumentParser, argv: list[str], cfg: dict):
 
 
 def build_parser() -> tuple[argparse.ArgumentParser, dict]:
-    parser = _Parser(prog="hbmodel", description=__doc__.splitlines()[0])
+    parser = _Parser(prog="hbmodel", description="hbmodel: horizontal-branch and red-clump modelling — predict, "
+                     "mock, fit mass loss, clump distances.")
     parser.add_argument("--version", action="version", version=f"hbmodel {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     modules = {}
@@ -91,9 +92,9 @@ def main(argv: list[str] | None = None) -> int:
     parser, modules = build_parser()
     try:
         # First pass: find the command and a possible --config file.
-        pre, _ = parser.parse_known_args(argv) if argv and not argv[0].startswith("-") else (None, None)
-        if pre is not None and pre.command in modules:
-            mod, sub = modules[pre.command]
+        command = argv[0] if argv and not argv[0].startswith("-") else None
+        if command in modules:
+            mod, sub = modules[command]
             cfg_path = _find_config(argv)
             if cfg_path:
                 _apply_config(sub, argv, _load_config(cfg_path))

@@ -1,0 +1,87 @@
+"""Argument groups shared by several sub-commands (population, mass loss)."""
+from __future__ import annotations
+
+import argparse
+import json
+import math
+
+import numpy as np
+
+
+def add_population_arguments(p: argparse.ArgumentParser, *, mass_loss_required=True, age_required=True):
+    g = p.add_argument_group("population")
+    g.add_argument("--feh", type=float, required=True, help="[Fe/H] (dex), -2.5 ... +0.5")
+    g.add_argument("--alpha-fe", type=float, default=0.0, help="[alpha/Fe] (dex), default 0")
+    g.add_argument("--age", type=float, required=age_required, help="age in Gyr (0.5 ... 14)")
+    g.add_argument("--helium", type=float, default=None,
+                   help="initial helium mass fraction Y (default: Yp + 1.5 Z)")
+    g.add_argument("--helium-enriched-fraction", type=float, default=0.0,
+                   help="fraction of stars enriched in helium (multiple populations)")
+    g.add_argument("--delta-y", type=float, default=0.0, help="helium enrichment of that fraction")
+    m = p.add_argument_group("RGB mass loss (give --eta or --mass-loss)")
+    m.add_argument("--eta", type=float, default=None, help="mass-loss efficiency of --law")
+    m.add_argument("--eta-sd", type=float, default=0.0, help="star-to-star Gaussian spread in eta")
+    m.add_argument("--mass-loss", type=float, default=None, help="mean integrated RGB mass loss (Msun)")
+    m.add_argument("--mass-loss-sd", type=float, default=0.0, help="star-to-star spread of the loss (Msun)")
+    m.add_argument("--law", choices=("reimers", "schroeder_cuntz"), default="reimers",
+                   help="mass-loss law (default reimers)")
+    m.add_argument("--hb-masses", default=None, metavar="FILE",
+                   help="user HB-mass distribution: a table with a 'mass' column (replaces --eta/--mass-loss)")
+    p.set_defaults(_mass_loss_required=mass_loss_required)
+
+
+def mass_loss_from_args(args):
+    from ..population import MassLoss
+    given = [x is not None for x in (args.eta, args.mass_loss, args.hb_masses)]
+    if sum(given) > 1:
+        raise ValueError("give only one of --eta, --mass-loss and --hb-masses")
+    if args.hb_masses is not None:
+        from ..io import read_catalog
+        t = read_catalog(args.hb_masses, required=("mass",))
+        return MassLoss.from_hb_masses(np.asarray(t["mass"], float))
+    if args.eta is not None:
+        if args.eta < 0:
+            raise ValueError(f"--eta must be non-negative (got {args.eta:g})")
+        if args.eta_sd < 0:
+            raise ValueError("--eta-sd must be non-negative")
+        return MassLoss.from_eta(args.eta, args.eta_sd, args.law)
+    if args.mass_loss is not None:
+        if args.mass_loss < 0:
+            raise ValueError(f"--mass-loss must be non-negative (got {args.mass_loss:g})")
+        if args.mass_loss_sd < 0:
+            raise ValueError("--mass-loss-sd must be non-negative")
+        return MassLoss.from_delta_m(args.mass_loss, args.mass_loss_sd, args.law)
+    if getattr(args, "_mass_loss_required", True):
+        raise ValueError("give the RGB mass loss: --eta ETA or --mass-loss DM (Msun)")
+    return None
+
+
+def population_from_args(args, mass_loss=None):
+    from ..population import Population
+    if args.age is not None and not (math.isfinite(args.age) and args.age > 0):
+        raise ValueError(f"--age must be a positive number of Gyr (got {args.age:g})")
+    ml = mass_loss if mass_loss is not None else mass_loss_from_args(args)
+    return Population(args.feh, args.age, alpha_fe=args.alpha_fe, helium=args.helium, mass_loss=ml,
+                      helium_enriched_fraction=args.helium_enriched_fraction, helium_delta_y=args.delta_y)
+
+
+def to_jsonable(obj):
+    """Convert numpy scalars/arrays and NaN to JSON-friendly values (NaN -> None)."""
+    if isinstance(obj, dict):
+        return {str(k): to_jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [to_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [to_jsonable(v) for v in obj.tolist()]
+    if isinstance(obj, (np.floating, float)):
+        v = float(obj)
+        return v if math.isfinite(v) else None
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    return obj
+
+
+def dumps(obj) -> str:
+    return json.dumps(to_jsonable(obj), indent=2, sort_keys=True, allow_nan=False)
