@@ -50,7 +50,7 @@ def class_weights(zahb_logteff):
 def hb_lifetime_myr(core_mass_msun, zahb_logteff, helium_excess=0.0):
     """Core-helium-burning lifetime (Myr): ``t0 (Mc/0.49)^-3 10^(0.6 dY) (1 + 0.25 w_EHB)``.
 
-    ~95 Myr for Mc = 0.49 Msun (Sweigart 1987; Dorman 1992; common practice ~100 Myr); longer for the
+    ~88 Myr for Mc = 0.49 Msun (Sweigart 1987; Dorman 1992; common practice ~100 Myr); longer for the
     smaller cores of intermediate-mass stars (Girardi 1999).  Valid for Mc 0.30-0.55 Msun.
     """
     c = _c()

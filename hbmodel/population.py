@@ -280,6 +280,35 @@ class Population:
         self.logl_rgb_min = float(logl_rgb_min)
         self.subpopulations = self._build_subpopulations()
 
+    @classmethod
+    def from_history(cls, ages_gyr, sfr_weights, feh, *, alpha_fe=0.0, feh_weights=None, **kwargs):
+        """Composite population from a star-formation history.
+
+        ``sfr_weights[i]`` is the stellar mass formed in age bin ``ages_gyr[i]`` (any units);
+        ``feh`` may be a list of metallicities with ``feh_weights`` (a metallicity distribution applied
+        to every age).  Each component's weight is the number of stars reaching the RGB tip per unit
+        time, ``SFR xi(m_tip) |dm_tip/dt|`` (Kroupa 2001 IMF), so younger, faster-evolving components
+        contribute more giants per unit mass formed, as they should.
+        """
+        from .composition import Composition
+        from .imf import tip_birth_rate
+        ages = np.atleast_1d(np.asarray(ages_gyr, float))
+        sfr = np.atleast_1d(np.asarray(sfr_weights, float))
+        fehs = np.atleast_1d(np.asarray(feh, float))
+        fw = np.ones_like(fehs) if feh_weights is None else np.atleast_1d(np.asarray(feh_weights, float))
+        if ages.shape != sfr.shape or fehs.shape != fw.shape:
+            raise ValueError("ages/sfr_weights and feh/feh_weights must have matching lengths")
+        if np.any(sfr < 0) or np.any(fw < 0) or sfr.sum() <= 0 or fw.sum() <= 0:
+            raise ValueError("star-formation and metallicity weights must be non-negative, not all zero")
+        comps = []
+        for a, s in zip(ages, sfr):
+            for f, w in zip(fehs, fw):
+                if s * w <= 0:
+                    continue
+                rate = tip_birth_rate(a, Composition(f, alpha_fe).mh)
+                comps.append(Component(float(a), float(f), float(alpha_fe), float(s * w * rate)))
+        return cls(components=comps, **kwargs)
+
     # -- derived giant-branch quantities per (component, helium) -------------------------
     def _build_subpopulations(self):
         subs = []
@@ -419,9 +448,12 @@ class Population:
         w = (np.full(v.size, sub.t_rgb_myr / v.size) if weight is None else weight) * sub.weight
         return self._mk("rgb", i, sub, mass, logl, logt, w, None, v)
 
-    def sample(self, n_hb, rng: np.random.Generator, phases=PHASES) -> StarSet:
-        """Random stars: ``n_hb`` HB stars (expected, Poisson-free exact count) plus the RGB and early-AGB
-        stars that go with them in lifetime proportion.  Unit weights."""
+    def sample(self, n_hb, rng: np.random.Generator, phases=PHASES, rgb_logl_range=None) -> StarSet:
+        """Random stars: ``n_hb`` HB stars (expected count) plus the RGB and early-AGB stars that go with
+        them in lifetime proportion.  Unit weights.
+
+        ``rgb_logl_range=(lo, hi)`` draws RGB stars only between those luminosities (in the right number
+        for that stretch), so a magnitude window costs no wasted RGB draws."""
         if not isinstance(rng, np.random.Generator):
             raise ValueError("sample() needs a numpy.random.Generator (e.g. numpy.random.default_rng(seed))")
         n_hb = int(n_hb)
@@ -439,12 +471,28 @@ class Population:
                 if n == 0:
                     continue
                 if ph == "rgb":
-                    sets.append(self._rgb_nodes(i, sub, rng.random(n), np.ones(n) / sub.weight))
+                    v_lo, v_hi = self._rgb_time_window(sub, rgb_logl_range)
+                    n = int(np.floor(counts[ph][i] * (v_hi - v_lo)))
+                    n += int(rng.random() < (counts[ph][i] * (v_hi - v_lo)) % 1)
+                    if n:
+                        v = v_lo + (v_hi - v_lo) * rng.random(n)
+                        sets.append(self._rgb_nodes(i, sub, v, np.ones(n) / sub.weight))
                     continue
                 sets.append(self._sample_hb_agb(i, sub, ph, n, rng))
         out = StarSet.concatenate(sets)
         out.weight = np.ones(len(out))
         return out
+
+    def _rgb_time_window(self, sub, logl_range):
+        """Fractional RGB-age interval covering RGB luminosities ``logl_range`` (bump included)."""
+        if logl_range is None or sub.t_rgb_myr <= 0:
+            return 0.0, 1.0
+        lo, hi = (float(x) for x in logl_range)
+        d = gb.constants()["bump_dlogl"]
+        mc = gb.rgb_core_from_logl(np.array([lo - d, hi + d]), sub.mh)
+        mc = np.clip(mc, sub.mc_rgb_lo_msun, sub.core_mass_msun)
+        t = gb.core_growth_time_myr(sub.mc_rgb_lo_msun, mc, sub.mh, sub.composition.x) / sub.t_rgb_myr
+        return float(np.clip(t[0], 0, 1)), float(np.clip(t[1], 0, 1))
 
     def _sample_hb_agb(self, i, sub, ph, n, rng):
         # draw masses in proportion to the time each mass spends in the phase: rejection on t/t_max

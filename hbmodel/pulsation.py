@@ -3,8 +3,9 @@
 * Strip edges linear in log L and log M (from memory of the pulsation models of
   Marconi et al. 2015, ApJ 808, 50): first-overtone blue edge (hot limit) and
   fundamental red edge (cool limit); inside the "either-or" zone the mode is
-  assigned by which side of its midpoint the star lies (a simple hysteresis-free
-  choice).
+  assigned by which side of a dividing line the star lies (a weighted mean of
+  the two inner edges, ``split_w``; a hysteresis-free choice calibrated so that
+  Oosterhoff I-like populations have ~20-30% RRc, common practice).
 * Periods: van Albada & Baker 1971, ApJ 169, 311:
   ``log P_F = 11.497 + 0.84 log L - 0.68 log M - 3.48 log Teff`` (days);
   first-overtone periods ``log P_1 = log P_F - 0.127``; fundamentalised
@@ -45,7 +46,8 @@ def pulsation_mode(logteff, logl, mass_msun):
     logteff = np.asarray(logteff, float)
     blue, red = strip_edges(logl, mass_msun)
     inside = (logteff <= blue) & (logteff >= red)
-    mid = 0.5 * (_edge("fbe", logl, mass_msun) + _edge("fore", logl, mass_msun))
+    c = _c()
+    mid = c["split_w"] * _edge("fbe", logl, mass_msun) + (1 - c["split_w"]) * _edge("fore", logl, mass_msun)
     return np.where(inside, np.where(logteff > mid, MODE_RRC, MODE_RRAB), MODE_NONE).astype(np.int8)
 
 

@@ -70,14 +70,28 @@ def _delta_m(feh, age, eta, alpha, law="reimers"):
     return _pop(feh, age, eta, 0.0, alpha, law=law).mean_mass_loss()
 
 
-def _zahb_strip_logl(feh, alpha=0.3):
-    from .morphology import zahb_at_strip
-    return zahb_at_strip(_sub(feh, 12.5, alpha))[0]
+def _zahb_mv(feh):
+    return _pop(feh, 12.5, 0.45, 0.03, 0.3).predict(bands=("V",))["zahb_mv_rr"]
 
 
-def _zahb_slope():
-    # d log L(ZAHB at the strip) / d[Fe/H] between -2.0 and -1.0
-    return _zahb_strip_logl(-1.0) - _zahb_strip_logl(-2.0)
+def _clump(feh, age, band):
+    return _pop(feh, age, 0.3, 0.03).predict(bands=(band,))["clump_absmag"][band]
+
+
+def _local_clump(band, solar):
+    from .population import MassLoss, Population
+    ages = np.array([1.0, 1.5, 2.0, 3.0, 4.0, 5.0, 6.0, 8.0, 10.0])
+    sfr = np.gradient(ages)  # constant star-formation rate per Gyr
+    if solar:
+        feh, fw = [0.0], [1.0]
+    else:  # a solar-neighbourhood metallicity distribution (common practice: mean ~ -0.1, sd ~ 0.2 dex)
+        feh, fw = [-0.6, -0.4, -0.2, 0.0, 0.2, 0.4], [0.5, 1.0, 1.5, 1.5, 1.0, 0.5]
+    pop = Population.from_history(ages, sfr, feh, feh_weights=fw, mass_loss=MassLoss.from_eta(0.3, 0.03))
+    return pop.predict(bands=(band,))["clump_absmag"][band]
+
+
+def _pred(key, feh, age, eta, eta_sd, alpha=0.3, helium=None):
+    return _pop(feh, age, eta, eta_sd, alpha, helium=helium).predict(bands=("V",))[key]
 
 
 def _ehb(quantity):
@@ -137,12 +151,45 @@ CHECKS = [
           "common practice (clump near 4700-5000 K)"),
     Check("log L(2.0 Msun core-He burner) - log L(1.2 Msun clump), solar", _two_msun_vs_clump, -0.1, 0.2,
           "common practice; Girardi 1999, MNRAS 308, 818 (secondary clump within ~0.4 mag of the main clump)"),
-    Check("ZAHB log L at the RR Lyrae strip, [Fe/H]=-1.5", lambda: _zahb_strip_logl(-1.5), 1.64, 0.04,
-          "M_V(RR) = 0.23[Fe/H] + 0.93 (Chaboyer 1999, from memory) less ~0.08 mag of evolution, BC_V ~ 0"),
-    Check("d log L(ZAHB, strip) / d[Fe/H]", _zahb_slope, -0.09, 0.03,
-          "slope 0.214-0.23 mag/dex of M_V(RR) (Clementini et al. 2003, AJ 125, 1309; Chaboyer 1999; from memory)"),
+    Check("ZAHB M_V at the centre of the RR Lyrae strip, [Fe/H]=-1.5", lambda: _zahb_mv(-1.5), 0.665, 0.08,
+          "M_V(RR) = 0.23[Fe/H] + 0.93 (Chaboyer 1999, Post-Hipparcos Cosmic Candles; from memory) "
+          "+ ~0.08 mag from mean RR Lyrae to ZAHB (common practice)", "photometry"),
+    Check("dM_V(ZAHB, strip)/d[Fe/H], [Fe/H] -2.0 to -1.0 [mag/dex]", lambda: _zahb_mv(-1.0) - _zahb_mv(-2.0),
+          0.22, 0.07, "Clementini et al. 2003, AJ 125, 1309 (0.214); Chaboyer 1999 (0.23); from memory", "photometry"),
     Check("HB lifetime, [Fe/H]=-1.5 [Myr]", lambda: _hb_lifetime(-1.5, 12.5), 100.0, 20.0,
           "common practice (~100 Myr; Sweigart 1987, ApJS 65, 95)"),
+    # --- photometry: the red clump (issue "Photometry")
+    Check("red-clump M_I, solar-neighbourhood mix ([Fe/H]=0, constant SFR 1-10 Gyr)",
+          lambda: _local_clump("I", solar=True), -0.22, 0.15,
+          "common practice (Hipparcos clump M_I ~ -0.22; e.g. Stanek & Garnavich 1998, ApJ 503, L131)", "photometry"),
+    Check("red-clump M_Ks, solar-neighbourhood mix ([Fe/H]=0, constant SFR 1-10 Gyr)",
+          lambda: _local_clump("Ks", solar=True), -1.54, 0.15,
+          "common practice (e.g. Groenewegen 2008, A&A 488, 935: M_Ks = -1.54)", "photometry"),
+    Check("red-clump M_V, solar-neighbourhood mix ([Fe/H] -0.6...+0.4, constant SFR 1-10 Gyr)",
+          lambda: _local_clump("V", solar=False), 0.81, 0.15,
+          "common practice (local clump M_V ~ +0.81 for [Fe/H] -0.6...+0.4)", "photometry"),
+    Check("clump M_I population correction, 10 Gyr minus 2 Gyr, solar",
+          lambda: _clump(0.0, 10.0, "I") - _clump(0.0, 2.0, "I"), 0.2, 0.15,
+          "Girardi & Salaris 2001, MNRAS 323, 109: clump fainter in I with age past ~2 Gyr (from memory)", "photometry"),
+    # --- populations (issue "Populations")
+    Check("HB type, [Fe/H]=-2.2, 12.5 Gyr, eta 0.45", lambda: _pred("hb_type", -2.2, 12.5, 0.45, 0.03), 0.85, 0.15,
+          "Galactic globular clusters: metal-poor old halo HBs are blue, HB type ~+0.7..+1 "
+          "(Lee, Demarque & Zinn 1994, ApJ 423, 248; Harris 1996 catalogue; from memory)", "population"),
+    Check("HB type, [Fe/H]=-0.7, 12.0 Gyr, eta 0.45", lambda: _pred("hb_type", -0.7, 12.0, 0.45, 0.03), -1.0, 0.1,
+          "47 Tuc-like metal-rich clusters have purely red HBs, HB type -1 (Harris 1996 catalogue; from memory)",
+          "population"),
+    Check("R-parameter N_HB/N_RGB, [Fe/H]=-1.5, Y from enrichment law", lambda: _pred("r_parameter", -1.5, 12.5, 0.45, 0.03),
+          1.39, 0.20, "Salaris et al. 2004, A&A 420, 911 (mean R = 1.39 for Galactic GCs, Y ~ 0.25; from memory)",
+          "population"),
+    Check("d log R / dY", lambda: (np.log10(_pred("r_parameter", -1.5, 12.5, 0.45, 0.03, helium=0.30))
+                                   - np.log10(_pred("r_parameter", -1.5, 12.5, 0.45, 0.03))) / (0.30 - 0.2460),
+          2.63, 0.8, "Cassisi, Salaris & Irwin 2003, ApJ 588, 862: Y = 0.380 log R + 0.176 (from memory)", "population"),
+    Check("mean RRab period, Oosterhoff I-like ([Fe/H]=-1.5, intermediate HB) [d]",
+          lambda: _pred("rrab_period_mean", -1.5, 12.5, 0.45, 0.06), 0.55, 0.05,
+          "Oosterhoff 1939, Observatory 62, 104; Catelan 2009, Ap&SS 320, 261 (Oo I <Pab> ~0.55 d)", "population"),
+    Check("mean RRab period, Oosterhoff II-like ([Fe/H]=-2.2, HB type ~0.3) [d]",
+          lambda: _pred("rrab_period_mean", -2.2, 12.5, 0.35, 0.10), 0.64, 0.05,
+          "Oosterhoff 1939; Catelan 2009, Ap&SS 320, 261 (Oo II <Pab> ~0.64 d)", "population"),
 ]
 
 

@@ -6,8 +6,9 @@ O'Connell 1993, ApJ 419, 596; Girardi 1999, MNRAS 308, 818 for core-helium
 burning in intermediate-mass stars):
 
 * luminosity = helium-burning core (steep in Mc) + hydrogen shell (grows with
-  envelope mass and saturates; brighter for helium-rich envelopes) + a shell
-  term for intermediate-mass stars (``tables/zahb_luminosity.csv``);
+  envelope mass and saturates -- but keeps rising on the red HB of metal-rich
+  populations; brighter for helium-rich envelopes) + a shell term for
+  intermediate-mass stars (``tables/zahb_luminosity.csv``, ``tables/zahb_shell.csv``);
 * Teff falls monotonically with envelope mass, from 30-40 kK for the extreme HB
   to a saturation value on the red HB / clump that is much cooler at high Z
   (``tables/zahb_teff.csv``, PCHIP in log Menv, linear in [M/H]).  The radius
@@ -80,8 +81,11 @@ def zahb_logl(mc_msun, menv_msun, mh, helium_excess=0.0):
     mh = check_range(mh, "[M/H]", *MH_RANGE)
     dy = as_float_array(helium_excess, "helium excess")
     l_he = 10.0 ** (c["he_logl0"] + c["he_dlogl_dmc"] * (mc - 0.49))
-    l_h = ((c["h_l0"] + c["h_l_mh"] * mh) * (mc / 0.49) ** c["h_mc_exp"]
-           * menv / (menv + c["h_menv_half"]) * 10.0 ** (c["h_dy"] * dy))
+    from .giant_branch import mh_interp
+    tilt = 1.0 + mh_interp("zahb_shell.csv", "tilt", mh) * np.clip(np.log10(np.maximum(menv, 1e-6) / 0.06),
+                                                                  0.0, c["tilt_cap_dex"])
+    l_h = (mh_interp("zahb_shell.csv", "h_l0", mh) * (mc / 0.49) ** c["h_mc_exp"]
+           * menv / (menv + c["h_menv_half"]) * tilt * 10.0 ** (c["h_dy"] * dy))
     l_im = c["im_l0"] * ((mc + menv) / 2.0) ** c["im_exp"]
     return np.log10(l_he + l_h + l_im)
 

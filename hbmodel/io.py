@@ -1,0 +1,585 @@
+"""Catalogue input and safe, reproducible output -- the edges of hbmodel.
+
+Reading
+-------
+:func:`read_catalog` reads a photometric catalogue by its file extension:
+
+========================  ==========================================
+extension                 format
+========================  ==========================================
+``.csv`` (``.csv.gz``)    comma-separated text, ``#`` comment lines
+``.ecsv`` (``.ecsv.gz``)  Enhanced Character-Separated Values
+``.fits`` ``.fit`` ``.fts`` (and ``.gz``)  FITS binary/ASCII table
+``.vot`` ``.xml``         IVOA VOTable
+``.parquet``              Apache Parquet (through pyarrow)
+========================  ==========================================
+
+Every failure a user can cause -- missing file, unknown extension, unreadable
+or corrupt file, empty table, missing or non-numeric required columns -- is a
+:class:`ValueError` (or :class:`FileNotFoundError`) with a one-line message.
+Rows are never dropped: missing values in numeric columns become NaN, and the
+helpers :func:`finite_rows` and :func:`check_errors` let the caller decide.
+
+Writing
+-------
+Every writer here is *atomic* (the data go to a temporary file in the target
+directory, which is then renamed over the target with :func:`os.replace`), so
+a failure never leaves a partial file and never damages an existing one. An
+existing file is only replaced when ``force=True``. Output is deterministic:
+the same input gives a byte-identical file (no embedded timestamps; gzip
+headers carry mtime 0; figures carry no creation date).
+"""
+from __future__ import annotations
+
+import gzip
+import json
+import math
+import os
+import tempfile
+import warnings
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+
+__all__ = [
+    "READ_FORMATS",
+    "WRITE_FORMATS",
+    "read_catalog",
+    "check_errors",
+    "finite_rows",
+    "write_table",
+    "atomic_write_text",
+    "atomic_write_bytes",
+    "atomic_write_json",
+    "atomic_savefig",
+    "prepare_out_dir",
+]
+
+#: extension -> (astropy format name, human label) for reading.
+READ_FORMATS: dict[str, tuple[str, str]] = {
+    ".csv": ("ascii.csv", "CSV"),
+    ".ecsv": ("ascii.ecsv", "ECSV"),
+    ".fits": ("fits", "FITS"),
+    ".fit": ("fits", "FITS"),
+    ".fts": ("fits", "FITS"),
+    ".vot": ("votable", "VOTable"),
+    ".xml": ("votable", "VOTable"),
+    ".parquet": ("parquet", "Parquet"),
+}
+_GZ_OK = {".csv", ".ecsv", ".fits", ".fit", ".fts"}
+
+#: extension -> (astropy format name, human label) for writing.
+WRITE_FORMATS: dict[str, tuple[str, str]] = dict(READ_FORMATS)
+
+_FIG_FORMATS = {".png": "png", ".pdf": "pdf", ".svg": "svg"}
+
+
+# --------------------------------------------------------------------------- #
+# small helpers
+# --------------------------------------------------------------------------- #
+def _one_line(exc: BaseException) -> str:
+    text = str(exc).strip()
+    first = text.splitlines()[0].strip() if text else ""
+    return f"{type(exc).__name__}: {first}" if first else type(exc).__name__
+
+
+def _split_ext(path: Path) -> tuple[str, bool]:
+    """Return (base extension, gzipped?) in lower case, e.g. ('.fits', True)."""
+    suffixes = [s.lower() for s in path.suffixes]
+    if not suffixes:
+        return "", False
+    if suffixes[-1] == ".gz":
+        return (suffixes[-2] if len(suffixes) >= 2 else ""), True
+    return suffixes[-1], False
+
+
+def _format_for(path: Path, table: Mapping, what: str) -> tuple[str, str, bool]:
+    ext, gz = _split_ext(path)
+    if ext not in table or (gz and ext not in _GZ_OK):
+        shown = ext + (".gz" if gz else "") or "(none)"
+        known = ", ".join(sorted(table)) + ", " + ", ".join(sorted(e + ".gz" for e in _GZ_OK))
+        raise ValueError(f"cannot {what} {path.name!r}: unknown file extension {shown!r} "
+                         f"(known: {known})")
+    fmt, label = table[ext]
+    return fmt, label + (" (gzip)" if gz else ""), gz
+
+
+def _show(name) -> str:
+    """A column name fit for a one-line message (repr if it has odd characters)."""
+    name = str(name)
+    return name if name.isprintable() and name.strip() == name and name else repr(name)
+
+
+def _list_names(names: Sequence[str], limit: int = 20) -> str:
+    names = [_show(n) for n in names]
+    shown = ", ".join(names[:limit])
+    return shown + (f", ... ({len(names)} in all)" if len(names) > limit else "")
+
+
+# --------------------------------------------------------------------------- #
+# reading
+# --------------------------------------------------------------------------- #
+def read_catalog(path, columns: Mapping[str, str] | None = None,
+                 required: Sequence[str] = ()):
+    """Read a catalogue table, rename columns to canonical names and validate it.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file; its format follows from the extension (see the module notes).
+    columns : dict, optional
+        Canonical name -> name in the file, e.g. ``{"V": "vmag", "V_err": "e_vmag"}``;
+        the file's columns are renamed accordingly.
+    required : sequence of str
+        Canonical column names that must be present and numeric.
+
+    Returns
+    -------
+    astropy.table.Table
+        All rows of the file. Missing values in numeric columns are NaN
+        (integer columns with missing values become float). No row is dropped.
+
+    Raises
+    ------
+    FileNotFoundError
+        The file does not exist.
+    ValueError
+        Any other problem, with a one-line message.
+    """
+    try:
+        return _read_catalog(path, columns, required)
+    except (ValueError, FileNotFoundError) as exc:
+        msg = str(exc)
+        if "\n" in msg.strip() or "\r" in msg:
+            raise type(exc)(" ".join(msg.split())) from None
+        raise
+    except Exception as exc:  # the contract: only ValueError / FileNotFoundError escape
+        raise ValueError(" ".join(f"could not read catalogue {path}: {_one_line(exc)}".split())) from None
+
+
+def _read_catalog(path, columns, required):
+    from astropy.table import MaskedColumn, Table
+
+    try:
+        path = Path(os.fspath(path))
+    except TypeError:
+        raise ValueError(f"catalogue path must be a string or path, got {path!r}") from None
+    fmt, label, _ = _format_for(path, READ_FORMATS, "read catalogue")
+    if not path.exists():
+        raise FileNotFoundError(f"catalogue file not found: {path}")
+    if path.is_dir():
+        raise ValueError(f"catalogue path {path} is a directory, not a file")
+    if not os.access(path, os.R_OK):
+        raise ValueError(f"catalogue file {path} is not readable (permission denied)")
+    if path.stat().st_size == 0:
+        raise ValueError(f"catalogue file {path} is empty")
+
+    kwargs = {"comment": "#"} if fmt == "ascii.csv" else {}
+    try:
+        with warnings.catch_warnings():
+            # Unit strings the reader does not recognise etc. are not errors here.
+            warnings.simplefilter("ignore")
+            if fmt == "parquet":
+                table = _read_parquet(path)
+            else:
+                table = Table.read(path, format=fmt, **kwargs)
+    except MemoryError:
+        raise ValueError(f"catalogue file {path} is too large to read into memory") from None
+    except Exception as exc:  # any reader failure is a bad file, for the user
+        raise ValueError(f"could not read {path} as {label}: {_one_line(exc)}") from None
+    if not isinstance(table, Table):
+        raise ValueError(f"could not read {path} as {label}: no table found")
+    if len(table.colnames) == 0 or len(table) == 0:
+        raise ValueError(f"catalogue {path} contains no rows")
+
+    try:
+        table.convert_bytestring_to_unicode()  # FITS text columns arrive as bytes
+    except Exception:  # undecodable bytes: keep them as they are
+        pass
+    if columns:
+        table = _rename(table, columns, path)
+
+    # Missing values in numeric columns -> NaN (keeps every row).
+    for name in table.colnames:
+        col = table[name]
+        if isinstance(col, MaskedColumn) and col.dtype.kind in "iuf":
+            data = np.asarray(col.data.data)
+            mask = np.ma.getmaskarray(col)
+            if mask.any():
+                data = data.astype(float, copy=True)
+                data[mask] = np.nan
+            table.replace_column(name, data, copy=False)
+            table[name].unit = col.unit
+            table[name].description = col.description
+
+    required = [str(r) for r in required]
+    missing = [r for r in required if r not in table.colnames]
+    if missing:
+        raise ValueError(f"catalogue {path.name} lacks required column(s): {_list_names(missing)} "
+                         f"(available: {_list_names(table.colnames)})")
+    bad = [f"{_show(r)} ({table[r].dtype})" for r in required
+           if table[r].dtype.kind not in "iuf" or table[r].ndim != 1]
+    if bad:
+        raise ValueError(f"catalogue {path.name}: required column(s) not numeric: {', '.join(bad)}")
+    return table
+
+
+def _read_parquet(path: Path):
+    """Read a Parquet file with pyarrow alone (astropy's reader would need pandas).
+
+    Units and table metadata written by astropy (``table_meta_yaml``) are restored
+    when present; null values become NaN (numbers) or masked entries (others).
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    import pyarrow.parquet as pq
+    from astropy.table import MaskedColumn, Table
+
+    pat = pq.read_table(path)
+    cols = {}
+    for name in pat.column_names:
+        ch = pat.column(name)
+        typ = ch.type
+        nulls = np.asarray(pc.is_null(ch).to_numpy(zero_copy_only=False), dtype=bool)
+        if pa.types.is_string(typ) or pa.types.is_large_string(typ):
+            arr = np.asarray(pc.fill_null(ch, "").to_numpy(zero_copy_only=False)).astype(str)
+            cols[name] = MaskedColumn(arr, mask=nulls) if nulls.any() else arr
+        elif pa.types.is_integer(typ) or pa.types.is_floating(typ):
+            cols[name] = np.asarray(ch.to_numpy())  # nulls -> NaN (ints become float)
+        elif pa.types.is_boolean(typ):
+            arr = np.asarray(pc.fill_null(ch, False).to_numpy(zero_copy_only=False), dtype=bool)
+            cols[name] = MaskedColumn(arr, mask=nulls) if nulls.any() else arr
+        else:
+            cols[name] = np.array(ch.to_pylist())
+    table = Table(cols) if cols else Table()
+    md = pat.schema.metadata or {}
+    if b"table_meta_yaml" in md:
+        try:
+            from astropy.table import meta as _meta
+
+            hdr = _meta.get_header_from_yaml(md[b"table_meta_yaml"].decode("utf-8").split("\n"))
+            for entry in hdr.get("datatype", []):
+                if entry.get("name") in table.colnames:
+                    if entry.get("unit"):
+                        table[entry["name"]].unit = entry["unit"]
+                    if entry.get("description"):
+                        table[entry["name"]].description = entry["description"]
+            table.meta.update(hdr.get("meta", {}) or {})
+        except Exception:  # metadata is a courtesy; the data are what matter
+            pass
+    return table
+
+
+def _rename(table, columns: Mapping[str, str], path: Path):
+    if not isinstance(columns, Mapping):
+        raise ValueError("columns must be a dict mapping canonical names to names in the file")
+    old, new = [], []
+    for canon, infile in columns.items():
+        canon, infile = str(canon), str(infile)
+        if infile == canon:
+            continue
+        if infile not in table.colnames:
+            raise ValueError(f"catalogue {path.name} has no column {infile!r} (asked for as {canon!r}); "
+                             f"available: {_list_names(table.colnames)}")
+        old.append(infile)
+        new.append(canon)
+    if len(set(old)) != len(old) or len(set(new)) != len(new):
+        raise ValueError("columns mapping uses a file column or a canonical name twice")
+    staying = set(table.colnames) - set(old)
+    clash = [n for n in new if n in staying]
+    if clash:
+        raise ValueError(f"renaming would clash with existing column(s) in {path.name}: {_list_names(clash)}")
+    if old:
+        # two-step rename so that swaps (a->b, b->a) work too
+        tmp = [f"\0tmp{i}" for i in range(len(old))]
+        table.rename_columns(old, tmp)
+        table.rename_columns(tmp, new)
+    return table
+
+
+def _column_as_float(table, name: str) -> np.ndarray:
+    names = table.colnames if hasattr(table, "colnames") else list(table)
+    if name not in names:
+        raise ValueError(f"table has no column {name!r}")
+    col = table[name]
+    if np.asarray(col).dtype.kind not in "iufb":
+        raise ValueError(f"column {name!r} is not numeric ({np.asarray(col).dtype})")
+    data = np.array(np.ma.getdata(col), dtype=float)
+    mask = np.ma.getmaskarray(col) if np.ma.isMaskedArray(col) else None
+    if mask is not None and mask.any():
+        data[mask] = np.nan
+    return data
+
+
+def finite_rows(table, cols: Sequence[str]) -> np.ndarray:
+    """Boolean mask of rows whose values in all ``cols`` are finite (not NaN/inf/masked)."""
+    if isinstance(cols, str):
+        cols = [cols]
+    n = len(table)
+    mask = np.ones(n, dtype=bool)
+    for c in cols:
+        mask &= np.isfinite(_column_as_float(table, c))
+    return mask
+
+
+def check_errors(table, cols: Sequence[str]) -> None:
+    """Raise ``ValueError`` unless every ``<band>_err`` column for ``cols`` is finite and > 0.
+
+    ``cols`` are band (magnitude-column) names; their uncertainties are expected
+    in columns named ``<band>_err``.
+    """
+    if isinstance(cols, str):
+        cols = [cols]
+    for band in cols:
+        name = f"{band}_err"
+        names = table.colnames if hasattr(table, "colnames") else list(table)
+        if name not in names:
+            raise ValueError(f"no uncertainty column {name!r} for band {band!r}")
+        err = _column_as_float(table, name)
+        nonfinite = ~np.isfinite(err)
+        nonpos = np.isfinite(err) & (err <= 0)
+        if nonfinite.any() or nonpos.any():
+            first = int(np.flatnonzero(nonfinite | nonpos)[0])
+            raise ValueError(f"column {name!r} has {int(nonfinite.sum())} NaN/missing/infinite and "
+                             f"{int(nonpos.sum())} non-positive value(s) (first at row {first}); "
+                             f"uncertainties must be finite and > 0")
+
+
+# --------------------------------------------------------------------------- #
+# atomic writing
+# --------------------------------------------------------------------------- #
+def _umask() -> int:
+    """The process umask, read without changing it (Linux); 0o022 if unknown."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError, IndexError):
+        pass
+    return 0o022
+
+
+def _check_target(path: Path, force: bool) -> None:
+    parent = path.parent
+    if path.name in ("", ".", ".."):
+        raise ValueError(f"output path {str(path)!r} does not name a file")
+    if not parent.exists():
+        raise ValueError(f"cannot write {path}: directory {parent} does not exist")
+    if not parent.is_dir():
+        raise ValueError(f"cannot write {path}: {parent} is not a directory")
+    if path.is_dir():
+        raise ValueError(f"cannot write {path}: it is an existing directory")
+    if (path.exists() or path.is_symlink()) and not force:
+        raise ValueError(f"{path} exists; use --force to overwrite")
+    if not os.access(parent, os.W_OK | os.X_OK):
+        raise ValueError(f"cannot write {path}: directory {parent} is not writable")
+
+
+def _atomic(path, writer, *, force: bool) -> Path:
+    """Run ``writer(tmp_path)`` on a temporary file beside ``path``, then move it into place."""
+    try:
+        path = Path(os.fspath(path))
+    except TypeError:
+        raise ValueError(f"output path must be a string or path, got {path!r}") from None
+    _check_target(path, force)
+    try:
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
+    except OSError as exc:
+        raise ValueError(f"cannot write {path}: {_one_line(exc)}") from None
+    os.close(fd)
+    try:
+        writer(tmp)
+        os.chmod(tmp, 0o666 & ~_umask())
+        with open(tmp, "rb+") as fh:
+            os.fsync(fh.fileno())
+        if force:
+            os.replace(tmp, path)
+        else:
+            # no-clobber: link(2) fails if the target appeared meanwhile
+            try:
+                os.link(tmp, path)
+            except FileExistsError:
+                raise ValueError(f"{path} exists; use --force to overwrite") from None
+            except OSError:  # file system without hard links
+                if path.exists():
+                    raise ValueError(f"{path} exists; use --force to overwrite") from None
+                os.replace(tmp, path)
+    except BaseException as exc:
+        _silent_unlink(tmp)
+        if isinstance(exc, (ValueError, OSError, KeyboardInterrupt, SystemExit)):
+            raise
+        raise ValueError(f"could not write {path}: {_one_line(exc)}") from exc
+    _silent_unlink(tmp)
+    return path
+
+
+def _silent_unlink(p) -> None:
+    try:
+        os.unlink(p)
+    except FileNotFoundError:
+        pass
+
+
+def atomic_write_bytes(path, data: bytes, *, force: bool = False) -> Path:
+    """Atomically write ``data`` to ``path`` (refuses to overwrite unless ``force``)."""
+    data = bytes(data)
+
+    def _w(tmp):
+        with open(tmp, "wb") as fh:
+            fh.write(data)
+
+    return _atomic(path, _w, force=force)
+
+
+def atomic_write_text(path, text: str, *, force: bool = False) -> Path:
+    """Atomically write UTF-8 ``text`` (``\\n`` line ends) to ``path``."""
+    if not isinstance(text, str):
+        raise ValueError(f"text must be a str, got {type(text).__name__}")
+    return atomic_write_bytes(path, text.encode("utf-8"), force=force)
+
+
+def _jsonable(obj):
+    """Plain-Python copy of ``obj`` for JSON: NaN/inf -> None, numpy -> lists/scalars."""
+    if isinstance(obj, Mapping):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, np.ndarray):
+        return _jsonable(obj.tolist())
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, (set, frozenset)):
+        return [_jsonable(v) for v in sorted(obj, key=repr)]
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        v = float(obj)
+        return v if math.isfinite(v) else None
+    if isinstance(obj, os.PathLike):
+        return os.fspath(obj)
+    if obj is None or isinstance(obj, str):
+        return obj
+    raise ValueError(f"cannot write an object of type {type(obj).__name__} to JSON")
+
+
+def atomic_write_json(path, obj, *, force: bool = False) -> Path:
+    """Atomically write ``obj`` as JSON: sorted keys, indent 2, NaN/inf written as ``null``."""
+    text = json.dumps(_jsonable(obj), sort_keys=True, indent=2, allow_nan=False,
+                      ensure_ascii=False) + "\n"
+    return atomic_write_text(path, text, force=force)
+
+
+def write_table(table, path, *, force: bool = False, meta: Mapping | None = None) -> Path:
+    """Write ``table`` (astropy Table or dict of columns) atomically, format by extension.
+
+    Formats: ``.csv``, ``.ecsv``, ``.fits``/``.fit``/``.fts`` (optionally ``.gz``),
+    ``.vot``/``.xml`` (VOTable), ``.parquet``. ``meta`` entries are added to the
+    table's metadata (in a copy; the caller's table is not changed); plain CSV
+    carries no metadata. The output is byte-identical for identical input.
+    """
+    from astropy.table import Table
+
+    try:
+        path = Path(os.fspath(path))
+    except TypeError:
+        raise ValueError(f"output path must be a string or path, got {path!r}") from None
+    fmt, label, gz = _format_for(path, WRITE_FORMATS, "write table")
+    if isinstance(table, Table):
+        out = table.copy(copy_data=False)
+    elif isinstance(table, Mapping):
+        try:
+            out = Table(dict(table))
+        except Exception as exc:
+            raise ValueError(f"cannot make a table from the given columns: {_one_line(exc)}") from None
+    else:
+        raise ValueError(f"write_table needs an astropy Table or a dict of columns, "
+                         f"got {type(table).__name__}")
+    if len(out.colnames) == 0:
+        raise ValueError(f"refusing to write {path.name}: the table has no columns")
+    if meta:
+        if not isinstance(meta, Mapping):
+            raise ValueError("meta must be a dict")
+        out.meta.update({str(k): meta[k] for k in meta})
+
+    def _w(tmp):
+        target = tmp + ".inner" if gz else tmp
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")  # e.g. HIERARCH cards for long FITS keys
+                out.write(target, format=fmt, overwrite=True)
+            if gz:
+                with open(target, "rb") as fh:
+                    raw = fh.read()
+                with open(tmp, "wb") as fh:  # mtime=0: no timestamp in the gzip header
+                    fh.write(gzip.compress(raw, compresslevel=6, mtime=0))
+        except (ValueError, OSError):
+            raise
+        except Exception as exc:
+            raise ValueError(f"could not write {path.name} as {label}: {_one_line(exc)}") from None
+        finally:
+            if gz:
+                _silent_unlink(target)
+
+    return _atomic(path, _w, force=force)
+
+
+def atomic_savefig(fig, path, *, force: bool = False, dpi: float | None = None, **kwargs) -> Path:
+    """Save a matplotlib figure atomically and reproducibly (PNG, PDF or SVG).
+
+    No creation date is embedded (PNG ``Creation Time``, PDF ``CreationDate``,
+    SVG ``dc:date``), and SVG element ids use a fixed hash salt, so the same
+    figure gives the same bytes.
+    """
+    import matplotlib
+
+    try:
+        path = Path(os.fspath(path))
+    except TypeError:
+        raise ValueError(f"output path must be a string or path, got {path!r}") from None
+    ext = path.suffix.lower()
+    if ext not in _FIG_FORMATS:
+        raise ValueError(f"cannot save figure {path.name!r}: unknown extension {ext or '(none)'!r} "
+                         f"(known: {', '.join(sorted(_FIG_FORMATS))})")
+    fmt = _FIG_FORMATS[ext]
+    metadata = dict(kwargs.pop("metadata", None) or {})
+    if fmt == "png":
+        metadata.setdefault("Creation Time", None)
+    elif fmt == "pdf":
+        metadata.setdefault("CreationDate", None)
+        metadata.setdefault("ModDate", None)
+    elif fmt == "svg":
+        metadata.setdefault("Date", None)
+
+    def _w(tmp):
+        with matplotlib.rc_context({"svg.hashsalt": "hbmodel"}):
+            fig.savefig(tmp, format=fmt, dpi=dpi, metadata=metadata, **kwargs)
+
+    return _atomic(path, _w, force=force)
+
+
+def prepare_out_dir(path, *, force: bool = False) -> Path:
+    """Create a result directory (with parents) and return it.
+
+    An existing empty directory is fine. An existing non-empty directory is
+    refused unless ``force=True`` -- and even then nothing in it is deleted;
+    files are replaced only as they are rewritten.
+    """
+    try:
+        path = Path(os.fspath(path))
+    except TypeError:
+        raise ValueError(f"output directory must be a string or path, got {path!r}") from None
+    if path.exists() and not path.is_dir():
+        raise ValueError(f"output directory {path} exists and is not a directory")
+    if path.is_dir():
+        if any(path.iterdir()) and not force:
+            raise ValueError(f"output directory {path} exists and is not empty; use --force to overwrite")
+        if not os.access(path, os.W_OK | os.X_OK):
+            raise ValueError(f"output directory {path} is not writable")
+        return path
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ValueError(f"cannot create output directory {path}: {_one_line(exc)}") from None
+    return path

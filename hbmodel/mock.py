@@ -1,0 +1,189 @@
+"""Mock catalogues: a population's stars observed as a survey or cluster study would see them.
+
+Pipeline: :meth:`Population.sample` (RGB, HB and early-AGB stars in lifetime
+proportion) -> absolute magnitudes (:mod:`hbmodel.photometry`) -> optional
+unresolved companions -> distance and (differential) extinction
+(:mod:`hbmodel.extinction`) -> photometric errors and completeness
+(:mod:`hbmodel.observe`) -> optional field contamination.  Everything random
+comes from one explicit ``numpy.random.Generator``.
+
+Star counts can be set by the number of HB stars or by the population's total
+initial mass, via the Kroupa (2001, MNRAS 322, 231) IMF: the rate at which stars
+reach the RGB tip is ``M_tot xi(m_tip) |dm_tip/dt|``.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ._tables import read_table
+from .imf import imf_number_density
+from .population import Population, StarSet
+
+__all__ = ["ObservationSpec", "make_mock", "expected_hb_count", "imf_number_density"]
+
+
+@dataclass(frozen=True)
+class ObservationSpec:
+    """How the mock is observed.  ``depth`` maps band -> 5-sigma limiting magnitude (error law);
+    ``completeness_m50`` the 50%-completeness magnitude in ``completeness_band`` (logistic of width
+    ``completeness_width``)."""
+
+    distance_modulus: float = 0.0
+    ebv: float = 0.0
+    rv: float = 3.1
+    law: str = "F99"
+    ebv_sd: float = 0.0
+    depth: dict | None = None
+    completeness_m50: float | None = None
+    completeness_width: float = 0.15
+    completeness_band: str | None = None
+    binary_fraction: float = 0.0
+    n_field: int = 0
+    field_box: tuple | None = None      # (colour_min, colour_max, mag_bright, mag_faint)
+    field_table: object = None           # astropy Table of field stars to resample
+    window: tuple | None = None          # (band, bright, faint): keep only stars inside
+
+    def __post_init__(self):
+        if not np.isfinite(self.distance_modulus):
+            raise ValueError("distance modulus must be finite")
+        if self.ebv < 0:
+            raise ValueError(f"E(B-V) must be non-negative (got {self.ebv:g})")
+        if self.ebv_sd < 0:
+            raise ValueError("the differential-reddening spread must be non-negative")
+        if not 0.0 <= self.binary_fraction <= 1.0:
+            raise ValueError("binary fraction must lie in [0, 1]")
+        if self.n_field < 0:
+            raise ValueError("the number of field stars must be non-negative")
+
+
+def expected_hb_count(population: Population, total_mass_msun: float) -> float:
+    """Expected number of HB stars in a population of initial mass ``total_mass_msun`` (Kroupa IMF)."""
+    from . import giant_branch as gb
+    if not (np.isfinite(total_mass_msun) and total_mass_msun > 0):
+        raise ValueError("total mass must be positive")
+    times = population.phase_times()
+    # rate of stars reaching the tip per unit mass formed, for each sub-population (weights are number
+    # fractions of giants, so the rate of the first component fixes the normalisation)
+    from .imf import tip_birth_rate
+    n = 0.0
+    wsum = 0.0
+    for i, sub in enumerate(population.subpopulations):
+        y = sub.composition.y if (population.helium is not None or sub.helium_excess) else None
+        rate = total_mass_msun * tip_birth_rate(sub.age_gyr, sub.mh, y)  # stars per Myr
+        n += rate * times["hb"][i]
+        wsum += sub.weight
+    return n
+
+
+def _companions(stars: StarSet, rng, bands):
+    """Main-sequence companions with mass ratio q ~ U(0.1, 1) of the primary's initial mass.
+
+    Main-sequence L ~ M^4, R ~ M^0.8 (common practice, textbook homology scalings)."""
+    from .photometry import absolute_magnitudes
+    q = rng.uniform(0.1, 1.0, len(stars))
+    m = np.clip(q * np.minimum(stars.mass_msun, 1.0), 0.1, None)
+    logl = 4.0 * np.log10(m)
+    logr = 0.8 * np.log10(m)
+    logt = np.log10(5772.0) + 0.25 * logl - 0.5 * logr
+    logt = np.clip(logt, np.log10(3000.0), np.log10(50000.0))
+    logg = np.clip(4.438 + np.log10(m) - 2 * logr, -0.5, 6.5)
+    return absolute_magnitudes(10 ** logt, logg, stars.feh, logl, bands)
+
+
+def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=None, total_mass_msun=None,
+              obs: ObservationSpec = ObservationSpec()):
+    """Generate a mock catalogue (astropy Table) of RGB, HB and early-AGB stars (and field stars).
+
+    Columns: ``phase`` (rgb/hb/agb/field), ``mass`` [Msun], ``teff`` [K], ``logg`` [cgs], ``logl``
+    [Lsun], ``is_rr``, ``rr_mode`` (0 none, 1 RRab, 2 RRc), ``period_days``, ``ebv``, and per band
+    ``<band>`` (observed apparent magnitude), ``<band>_err``, ``<band>_true``.
+    """
+    from astropy.table import Table
+    from .extinction import extinction_ratio
+    from .observe import (CMDBox, Completeness, add_unresolved_binaries, default_error_law,
+                          differential_reddening, observe_magnitudes, resample_field, uniform_contaminants)
+    from .photometry import get_band
+
+    if not isinstance(rng, np.random.Generator):
+        raise ValueError("make_mock needs a numpy.random.Generator")
+    bands = tuple(bands)
+    if not bands:
+        raise ValueError("give at least one band")
+    for b in bands:
+        get_band(b)
+    if (n_hb is None) == (total_mass_msun is None):
+        raise ValueError("give exactly one of n_hb and total_mass_msun")
+    if n_hb is None:
+        n_hb = expected_hb_count(population, total_mass_msun)
+        n_hb = int(rng.poisson(n_hb))
+        if n_hb <= 0:
+            raise ValueError(f"a population of {total_mass_msun:g} Msun holds no HB star")
+    if int(n_hb) <= 0:
+        raise ValueError("the number of HB stars must be positive")
+    rgb_range = None
+    if obs.window is not None:
+        wband, bright, faint = obs.window
+        if wband not in bands:
+            raise ValueError(f"window band {wband} is not among the mock's bands")
+        # RGB luminosities that can land in the window (generous bolometric-correction margin)
+        abs_b, abs_f = bright - obs.distance_modulus - 0.5, faint - obs.distance_modulus + 3.0
+        rgb_range = ((4.74 - abs_f) / 2.5, (4.74 - abs_b) / 2.5 + 0.6)
+    stars = population.sample(int(n_hb), rng, rgb_logl_range=rgb_range)
+    absmag = stars.absolute_magnitudes(bands)
+    if obs.binary_fraction > 0:
+        comp = _companions(stars, rng, bands)
+        absmag = add_unresolved_binaries(absmag, comp, obs.binary_fraction, rng)
+    n = len(stars)
+    ebv_star = differential_reddening(n, obs.ebv, rng, sd=obs.ebv_sd) if n else np.zeros(0)
+    teff = stars.teff_k
+    true = {b: absmag[b] + obs.distance_modulus + ebv_star * extinction_ratio(b, teff, obs.rv, obs.law)
+            for b in bands}
+    cols = {"phase": stars.phase.astype("<U5"), "mass": stars.mass_msun, "teff": teff, "logg": stars.logg,
+            "logl": stars.logl, "is_rr": stars.is_rr, "rr_mode": stars.rr_mode, "period_days": stars.period_days,
+            "ebv": ebv_star}
+    # field contamination
+    if obs.n_field > 0:
+        if obs.field_table is not None:
+            field = resample_field(obs.field_table, obs.n_field, rng, bands)
+        else:
+            if obs.field_box is None or len(bands) < 2:
+                raise ValueError("uniform field contamination needs two bands and a box "
+                                 "(colour_min, colour_max, mag_bright, mag_faint)")
+            cmin, cmax, mb, mf = obs.field_box
+            box = CMDBox(bands[0], (bands[0], bands[1]), (mb, mf), (cmin, cmax))
+            field = uniform_contaminants(obs.n_field, rng, box)
+            field = {b: field[b] if b in field else field[bands[0]] for b in bands}
+        nf = obs.n_field
+        true = {b: np.concatenate([true[b], np.asarray(field[b], float)]) for b in bands}
+        cols = {k: np.concatenate([v, np.full(nf, "field" if k == "phase" else
+                                              (False if k == "is_rr" else (0 if k == "rr_mode" else np.nan)),
+                                              dtype=v.dtype)]) for k, v in cols.items()}
+    laws = {}
+    for b in bands:
+        if obs.depth and b in obs.depth:
+            laws[b] = default_error_law(b, depth_mag=float(obs.depth[b]))
+        else:
+            # no depth given: a bright, high signal-to-noise catalogue (5-sigma limit 6 mag below the HB)
+            laws[b] = default_error_law(b, depth_mag=float(np.nanmedian(true[b])) + 6.0 if len(true[b]) else 25.0)
+    completeness = None
+    cband = obs.completeness_band or bands[0]
+    if obs.completeness_m50 is not None:
+        completeness = Completeness(obs.completeness_m50, obs.completeness_width)
+    observed, errors, detected = observe_magnitudes(true, rng, error_laws=laws, completeness=completeness,
+                                                    completeness_band=cband)
+    t = Table()
+    for k, v in cols.items():
+        t[k] = v
+    for b in bands:
+        t[b] = observed[b]
+        t[f"{b}_err"] = errors[b]
+        t[f"{b}_true"] = true[b]
+    t = t[np.asarray(detected, bool)]
+    if obs.window is not None:
+        wband, bright, faint = obs.window
+        t = t[(t[wband] >= bright) & (t[wband] <= faint)]
+    t.meta["hbmodel_mock"] = {"n_hb_drawn": int(n_hb), "distance_modulus": obs.distance_modulus,
+                              "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands)}
+    return t

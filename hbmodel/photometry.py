@@ -1,0 +1,380 @@
+"""Photometry: band registry, bolometric corrections, colours and absolute magnitudes.
+
+Everything is a vectorised function of ``(teff_k, logg, feh)``, valid for
+3,000 K <= Teff <= 50,000 K, -0.5 <= log g <= 6.5 and [Fe/H] within
+``hbmodel.composition.FEH_RANGE``; outside, a ``ValueError`` is raised.
+All magnitudes are on the Vega system; coefficients live in ``tables/``.
+
+Construction (each step names its published source; see the table headers):
+
+1. **Bolometric correction in V** -- Flower 1996, ApJ 469, 355, with the corrected
+   coefficients of Torres 2010, AJ 140, 1158 (three polynomials in log Teff; the
+   segment joins at log Teff = 3.70 and 3.90 are blended over +-0.01 dex so that
+   BC_V has no step).  Flower's relation has no gravity or metallicity term.  Below
+   5,000 K the relation is that of giants; for cool dwarfs the bolometric
+   correction in Ks (nearly gravity independent -- common practice) is carried
+   over from the giant track, i.e. BC_V = BC_V(Flower) - s(Teff)[(V-Ks) - (V-Ks)_giant],
+   with s = 1 below 4,000 K falling smoothly to 0 at 5,000 K.
+2. **Solar-metallicity colours** ``V - X`` for X in U B R I J H Ks on two gravity
+   tracks (dwarf node log g = 4.5, giant node log g = 2.5; linear in log g between,
+   held constant outside):
+
+   * dwarfs 4,500-7,500 K: Casagrande et al. 2010, A&A 512, A54 (B-V, V-I_C, V-Ks);
+   * giants 3,750-7,500 K: Alonso, Arribas & Martinez-Roger 1999, A&AS 140, 261
+     (B-V, V-K);
+   * all other entries, including the hot stars 8,000-50,000 K (HB/sdB range):
+     tabulated from memory of Bessell, Castelli & Plez 1998, A&A 333, 231,
+     Worthey & Lee 2011, ApJS 193, 1 and Pecaut & Mamajek 2013, ApJS 208, 9
+     (marked "from memory" in the tables).
+
+   Nodes are joined by monotone cubic (PCHIP) interpolation in log Teff, so every
+   ``V - X`` colour and B-V is monotonic in Teff at fixed log g: no step in a CMD.
+3. **Metallicity** -- the same published relations used differentially,
+   Delta X(Teff, [Fe/H]) = X(Teff, [Fe/H]) - X(Teff, 0), with smooth Teff windows
+   inside their calibrated ranges (``tables/colour_feh_relations.csv``); U-B gets the
+   ultraviolet-excess relation of Carney 1979, ApJ 233, 211; hotter than 6,000 K the
+   metal-poor U-V is the solar U-V scaled by its ratio at 6,000 K (so the excess
+   vanishes at A0 and U-V stays monotonic); V-R follows V-I
+   (x 0.52); V-J and V-H follow V-Ks (near-IR colours taken metallicity-free).
+4. **Gaia G, BP, RP** -- BP-RP from V-I_C (Evans et al. 2018, A&A 616, A4, valid
+   -0.4 < V-I < 4), G-V from BP-RP (Riello et al. 2021, A&A 649, A3, valid
+   -0.5 < BP-RP < 2.75, extrapolated beyond, i.e. for the coolest M stars), and the
+   split of BP-RP into BP and RP from the expected flux-excess factor
+   C* = (I_BP + I_RP)/I_G and the EDR3 Vega zero points (Riello et al. 2021).
+5. **Solar reference** on the IAU 2015 bolometric scale (Resolution B2,
+   Prsa et al. 2016, AJ 152, 41): ``M_BOL_SUN = 4.74``.
+
+Limitations: U-B (Balmer jump) and G-V are *not* monotonic in Teff -- by physics,
+so only colours whose bands straddle the V/G peak are; hot-star colours have no
+gravity or metallicity term (except through U); Flower's BC_V has no [Fe/H] term.
+"""
+from __future__ import annotations
+
+import csv
+import functools
+import io
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.interpolate import PchipInterpolator
+
+from ._tables import _text, read_table
+from ._validate import as_float_array, check_range
+from .composition import FEH_RANGE
+
+__all__ = [
+    "M_BOL_SUN", "BAND_NAMES", "Band", "get_band", "TEFF_RANGE_K", "LOGG_RANGE",
+    "bolometric_correction", "absolute_magnitudes", "colour", "colours_v",
+]
+
+#: Absolute bolometric magnitude of the Sun, IAU 2015 Resolution B2 (Prsa et al. 2016, AJ 152, 41).
+M_BOL_SUN = 4.74
+
+#: Validity range of the photometric calibration.
+TEFF_RANGE_K = (3000.0, 50000.0)
+LOGG_RANGE = (-0.5, 6.5)
+
+_DWARF_LOGG = 4.5
+_GIANT_LOGG = 2.5
+_NFINE = 6001  # samples of the fine log-Teff grid (spacing ~2e-4 dex)
+
+
+@dataclass(frozen=True)
+class Band:
+    """One photometric band of the registry (``tables/bands.csv``)."""
+
+    name: str
+    system: str
+    zero_point: str
+    lambda_eff_um: float
+    lambda_lo_um: float
+    lambda_hi_um: float
+    shape: str
+    colour_source: str
+
+
+@functools.lru_cache(maxsize=None)
+def _registry() -> dict[str, Band]:
+    text = _text("bands.csv")
+    rows = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    out = {}
+    for r in csv.DictReader(io.StringIO("\n".join(rows))):
+        out[r["name"]] = Band(r["name"], r["system"], r["zero_point"], float(r["lambda_eff_um"]),
+                              float(r["lambda_lo_um"]), float(r["lambda_hi_um"]), r["shape"],
+                              r["colour_source"])
+    return out
+
+
+#: Standard band names, in registry order.
+BAND_NAMES: tuple[str, ...] = tuple(_registry())
+
+
+def get_band(name: str) -> Band:
+    """Return the :class:`Band` called ``name``; unknown names raise ``ValueError``."""
+    reg = _registry()
+    if not isinstance(name, str) or name not in reg:
+        raise ValueError(f"unknown band {name!r}; valid bands: {', '.join(reg)}")
+    return reg[name]
+
+
+# --------------------------------------------------------------------------- tables
+def _smoothstep(x):
+    x = np.clip(x, 0.0, 1.0)
+    return x * x * (3.0 - 2.0 * x)
+
+
+def _window(teff, t0, t1, t2, t3):
+    """Smooth weight: 0 below t0, 1 on [t1, t2], 0 above t3."""
+    return _smoothstep((teff - t0) / (t1 - t0)) * (1.0 - _smoothstep((teff - t2) / (t3 - t2)))
+
+
+def _flower_bc_v(logt):
+    """BC_V of Flower 1996 (ApJ 469, 355) with Torres 2010 (AJ 140, 1158) coefficients."""
+    t = read_table("bc_v_flower1996_torres2010.csv")
+    coef = np.stack([t[f"c{i}"] for i in range(6)], axis=1)
+    seg = [np.polynomial.polynomial.polyval(logt, c) for c in coef]
+    edges = t["logt_hi"][:-1]
+    out = seg[0]
+    for k, e in enumerate(edges):
+        w = _smoothstep((logt - (e - 0.01)) / 0.02)
+        out = (1.0 - w) * out + w * seg[k + 1]
+    return out
+
+
+class _Uniform:
+    """Linear interpolation on a uniform grid with precomputed slopes (fast, vectorised).
+
+    Values outside the grid are held at the end values (callers validate ranges first).
+    """
+
+    def __init__(self, lo, hi, n, columns):
+        self.lo, self.n = float(lo), int(n)
+        self.step = (float(hi) - float(lo)) / (n - 1)
+        self.val, self.slope = {}, {}
+        for k, v in columns.items():
+            v = np.ascontiguousarray(v, dtype=float)
+            sl = np.append(np.diff(v), 0.0)
+            v.setflags(write=False)
+            sl.setflags(write=False)
+            self.val[k], self.slope[k] = v, sl
+
+    def locate(self, x):
+        pos = np.clip((x - self.lo) / self.step, 0.0, self.n - 1.0)
+        i = np.minimum(pos.astype(np.intp), self.n - 2)
+        return i, pos - i
+
+    def get(self, name, i, f):
+        return np.take(self.val[name], i) + f * np.take(self.slope[name], i)
+
+
+@functools.lru_cache(maxsize=None)
+def _feh_relations():
+    t = read_table("colour_feh_relations.csv")
+    rows = []
+    for i in range(len(t["track"])):
+        rows.append((int(t["track"][i]), int(t["colour"][i]),
+                     tuple(float(t[f"a{k}"][i]) for k in range(6)),
+                     tuple(float(t[f"t{k}"][i]) for k in range(4))))
+    return tuple(rows)
+
+
+def _theta_root(c, theta, feh):
+    """Colour X solving theta = a0 + a1 X + a2 X^2 + a3 X F + a4 F + a5 F^2 (increasing branch)."""
+    a = c[2]
+    b = c[1] + c[3] * feh
+    cc = c[0] + c[4] * feh + c[5] * feh * feh - theta
+    disc = np.sqrt(np.maximum(b * b - 4.0 * a * cc, 0.0))
+    # root on the branch where d theta / dX > 0, written in the cancellation-free form
+    return -2.0 * cc / (b + disc)
+
+
+def _uv_excess(feh):
+    """UV excess delta(U-B)_0.6 for [Fe/H] (Carney 1979, ApJ 233, 211); see the table header."""
+    u = read_table("uv_excess_carney1979.csv")
+    c0, c1, c2 = float(u["c0"][0]), float(u["c1"][0]), float(u["c2"][0])
+    q = c0 - np.asarray(feh, dtype=float)
+    disc = np.sqrt(np.maximum(c1 * c1 - 4.0 * c2 * q, 0.0))
+    return np.where(q >= 0.0, 2.0 * q / (-c1 + disc), q / (-c1))
+
+
+_TRACK_TABLES = ("colour_teff_dwarf.csv", "colour_teff_giant.csv")
+
+
+@functools.lru_cache(maxsize=None)
+def _engine():
+    """Precomputed grids: everything that depends on Teff only, on a fine log-Teff grid.
+
+    Columns: ``"<track><band>"`` (solar V-X), ``"bcp"`` = BC_V(Flower) + s (V-Ks)_giant,
+    ``"s"`` (dwarf BC_Ks weight), ``"w<r>"``/``"x0_<r>"`` (window and [Fe/H]=0 colour of
+    metallicity relation r), ``"wu"`` (UV-excess weight).  Also the Gaia grid in V-I
+    and the U-V ratio grid in [Fe/H].
+    """
+    lo, hi = np.log10(TEFF_RANGE_K[0]), np.log10(TEFF_RANGE_K[1])
+    logt = np.linspace(lo, hi, _NFINE)
+    teff = 10.0 ** logt
+    cols = {}
+    bands = None
+    for trk, name in enumerate(_TRACK_TABLES):
+        t = read_table(name)
+        bands = tuple(c[2:] for c in t if c.startswith("v_"))
+        x = np.log10(t["teff_k"])
+        for b in bands:
+            cols[f"{trk}{b}"] = PchipInterpolator(x, t["v_" + b])(logt)
+    s = 1.0 - _smoothstep((teff - 4000.0) / 1000.0)
+    cols["s"] = s
+    cols["bcp"] = _flower_bc_v(logt) + s * cols["1Ks"]
+    theta = 5040.0 / teff
+    for r, (_trk, _col, coef, win) in enumerate(_feh_relations()):
+        cols[f"w{r}"] = _window(teff, *win)
+        cols[f"x0_{r}"] = _theta_root(coef, theta, 0.0)
+    u = read_table("uv_excess_carney1979.csv")
+    t0, t1, t_ref = (float(u[k][0]) for k in ("t0", "t1", "t_ref"))
+    cols["wu"] = _smoothstep((teff - t0) / (t1 - t0))
+    tgrid = _Uniform(lo, hi, _NFINE, cols)
+
+    # U-V ratio at t_ref as a function of [Fe/H], per track (see uv_excess_carney1979.csv)
+    fgrid = np.linspace(FEH_RANGE[0], FEH_RANGE[1], 301)
+    it, ft = tgrid.locate(np.full_like(fgrid, np.log10(t_ref)))
+    ratios = {}
+    duv = -tgrid.get("wu", it, ft) * (_uv_excess(fgrid) - _uv_excess(0.0))
+    for trk in (0, 1):
+        dbv = np.zeros_like(fgrid)
+        for r, (rtrk, col, coef, _w) in enumerate(_feh_relations()):
+            if rtrk == trk and col == 1:
+                x = _theta_root(coef, 5040.0 / t_ref, fgrid) - tgrid.get(f"x0_{r}", it, ft)
+                dbv = dbv + tgrid.get(f"w{r}", it, ft) * x
+        uv0 = -tgrid.get(f"{trk}U", it, ft)
+        ratios[f"r{trk}"] = (uv0 + dbv + duv) / uv0
+    rgrid = _Uniform(FEH_RANGE[0], FEH_RANGE[1], fgrid.size, ratios)
+
+    # Gaia V-G, V-BP, V-RP as functions of V-I_C
+    vi = np.linspace(-1.0, 6.0, 7001)
+    ggrid = _Uniform(vi[0], vi[-1], vi.size, _gaia_from_vi(vi))
+    return tgrid, rgrid, ggrid, bands, t_ref
+
+
+def _check_inputs(teff_k, logg, feh):
+    teff = check_range(teff_k, "teff_k", *TEFF_RANGE_K, what="photometric calibration range (K)")
+    logg = check_range(logg, "logg", *LOGG_RANGE, what="photometric calibration range")
+    feh = check_range(feh, "[Fe/H]", *FEH_RANGE, what="photometric calibration range")
+    try:
+        return np.broadcast_arrays(teff, logg, feh)
+    except ValueError:
+        raise ValueError("teff_k, logg and feh must have broadcast-compatible shapes") from None
+
+
+def colours_v(teff_k, logg, feh) -> dict[str, np.ndarray]:
+    """Colours ``V - X`` for every band X of the registry (``'V'`` is 0), plus ``'_bc_v'``.
+
+    This is the shared engine of :func:`bolometric_correction`,
+    :func:`absolute_magnitudes` and :func:`colour`; see the module docstring for
+    the published relations and their validity ranges.
+    """
+    teff, logg, feh = _check_inputs(teff_k, logg, feh)
+    shape = teff.shape
+    teff, logg, feh = (np.ravel(a) for a in (teff, logg, feh))
+    tg, rg, gg, bands, t_ref = _engine()
+    i, f = tg.locate(np.log10(teff))
+    wg = np.clip((_DWARF_LOGG - logg) * (1.0 / (_DWARF_LOGG - _GIANT_LOGG)), 0.0, 1.0)
+    metal = bool(np.any(feh != 0.0))
+    d = {}
+    if metal:
+        theta = 5040.0 / teff
+        for r, (trk, col, coef, _w) in enumerate(_feh_relations()):
+            x = _theta_root(coef, theta, feh)
+            x -= tg.get(f"x0_{r}", i, f)
+            x *= tg.get(f"w{r}", i, f)
+            d[(trk, col)] = d[(trk, col)] + x if (trk, col) in d else x
+        d_ub = -tg.get("wu", i, f) * (_uv_excess(feh) - _uv_excess(0.0))
+        hot = teff > t_ref
+        ifeh, ffeh = rg.locate(feh)
+    out = {}
+    for b in bands:
+        vd = tg.get(f"0{b}", i, f)
+        vg = tg.get(f"1{b}", i, f)
+        if metal:
+            for trk, v in ((0, vd), (1, vg)):
+                if b == "B":
+                    v -= d.get((trk, 1), 0.0)
+                elif b == "U":
+                    cool = v - d.get((trk, 1), 0.0) - d_ub
+                    v[...] = np.where(hot, v * rg.get(f"r{trk}", ifeh, ffeh), cool)
+                elif b in ("I", "R"):
+                    v += (1.0 if b == "I" else 0.52) * d.get((trk, 2), 0.0)
+                elif b in ("J", "H", "Ks"):
+                    v += d.get((trk, 3), 0.0)
+        vg -= vd
+        vg *= wg
+        vg += vd
+        out[b] = vg
+    out["V"] = np.zeros_like(teff)
+    # BC_V = BC_V(Flower) - s [(V-Ks) - (V-Ks)_giant,solar]
+    out["_bc_v"] = tg.get("bcp", i, f) - tg.get("s", i, f) * out["Ks"]
+    ig, fg = gg.locate(out["I"])
+    for b in ("G", "BP", "RP"):
+        out[b] = gg.get(b, ig, fg)
+    return {k: v.reshape(shape) for k, v in out.items()}
+
+
+@functools.lru_cache(maxsize=None)
+def _gaia_coeffs():
+    t = read_table("gaia_transformations.csv")
+    rel = {int(r): i for i, r in enumerate(t["relation"])}
+
+    def row(r):
+        i = rel[r]
+        return (float(t["x_lo"][i]), float(t["x_hi"][i]),
+                np.array([t[f"c{k}"][i] for k in range(4)], dtype=float))
+    return {r: row(r) for r in rel}
+
+
+def _gaia_from_vi(vi):
+    """V-G, V-BP, V-RP from V-I_C (Evans et al. 2018; Riello et al. 2021)."""
+    cf = _gaia_coeffs()
+    pv = np.polynomial.polynomial.polyval
+    bprp = pv(vi, cf[1][2])
+    g_v = pv(bprp, cf[2][2])
+    cstar = np.select([bprp < cf[3][1], bprp < cf[4][1]],
+                      [pv(bprp, cf[3][2]), pv(bprp, cf[4][2])], pv(bprp, cf[5][2]))
+    zp_g, zp_bp, zp_rp = cf[6][2][:3]
+    # I_BP + I_RP = C* I_G with I_RP/I_BP = 10**(0.4 (bprp + zp_rp - zp_bp))
+    bp_g = (zp_bp - zp_g) - 2.5 * np.log10(cstar / (1.0 + 10.0 ** (0.4 * (bprp + zp_rp - zp_bp))))
+    return {"G": -g_v, "BP": -g_v - bp_g, "RP": -g_v - bp_g + bprp}
+
+
+def _bands_arg(bands):
+    if isinstance(bands, str):
+        bands = (bands,)
+    return tuple(get_band(b).name for b in bands)
+
+
+def bolometric_correction(band, teff_k, logg, feh) -> np.ndarray:
+    """Bolometric correction BC_band (mag), with M_band = M_bol - BC_band.
+
+    BC_V from Flower 1996 (ApJ 469, 355) / Torres 2010 (AJ 140, 1158); other bands as
+    BC_X = BC_V + (V - X) with the colours described in the module docstring.
+    Valid 3,000-50,000 K, log g -0.5...6.5, [Fe/H] in ``FEH_RANGE``.
+    """
+    name = get_band(band).name
+    v = colours_v(teff_k, logg, feh)
+    return v["_bc_v"] + v[name]
+
+
+def absolute_magnitudes(teff_k, logg, feh, logl_lsun, bands=BAND_NAMES) -> dict[str, np.ndarray]:
+    """Absolute magnitudes ``M_band = M_BOL_SUN - 2.5 log10(L/Lsun) - BC_band`` for ``bands``.
+
+    ``M_BOL_SUN = 4.74`` (IAU 2015 Resolution B2).  Inputs broadcast together;
+    returns a dict band -> ndarray.
+    """
+    names = _bands_arg(bands)
+    logl = as_float_array(logl_lsun, "logl_lsun")
+    v = colours_v(teff_k, logg, feh)
+    mv = M_BOL_SUN - 2.5 * logl - v["_bc_v"]
+    return {b: mv - v[b] for b in names}
+
+
+def colour(band1, band2, teff_k, logg, feh) -> np.ndarray:
+    """Colour index ``band1 - band2`` (mag), e.g. ``colour('B', 'V', 5772, 4.44, 0.0)``."""
+    b1, b2 = get_band(band1).name, get_band(band2).name
+    v = colours_v(teff_k, logg, feh)
+    return v[b2] - v[b1]
