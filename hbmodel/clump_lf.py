@@ -150,6 +150,71 @@ class _Model:
         return float(-np.sum(np.log(dens)) + penalty)
 
 
+    def _gauss_and_derivs(self, m: np.ndarray, mu: float, s: float):
+        """Window-normalised Gaussian and its derivatives with respect to mean and dispersion."""
+        a, b = (self.lo - mu) / s, (self.hi - mu) / s
+        z_norm = max(special.ndtr(b) - special.ndtr(a), 1e-300)
+        pa, pb = math.exp(-0.5 * a * a) / _SQRT2PI, math.exp(-0.5 * b * b) / _SQRT2PI
+        u = (m - mu) / s
+        g = np.exp(-0.5 * u * u) / (s * _SQRT2PI * z_norm)
+        d_mu = g * (u / s + (pb - pa) / (s * z_norm))
+        d_s = g * ((u * u - 1.0) / s + (b * pb - a * pa) / (s * z_norm))
+        return g, d_mu, d_s
+
+    def nll_grad(self, theta: np.ndarray, m: np.ndarray) -> tuple[float, np.ndarray]:
+        """Negative log-likelihood and its analytic gradient (finite differences inside the rarely
+        visited penalty region and for the background-free model)."""
+        p = self.unpack(theta)
+        in_penalty = (not self.has_bg) or self.bg_weight(p) < 0.0 or (
+            self.background == "quadratic" and self.quad_min(p) < 0.0)
+        if in_penalty:
+            f0 = self.nll(theta, m)
+            return f0, optimize.approx_fprime(theta, self.nll, 1e-7, m)
+        fc, s, mc = p["fraction_clump"], p["sigma_mag"], p["peak_mag"]
+        rb, ra = p["bump_ratio"], p["agb_ratio"]
+        gc, gc_mu, gc_s = self._gauss_and_derivs(m, mc, s)
+        dens = fc * gc
+        d_mc = fc * gc_mu
+        d_s = fc * gc_s
+        grads: dict[str, np.ndarray] = {}
+        g_bg = self._bg(m, p)
+        f_bg = 1.0 - fc * (1.0 + rb + ra)
+        d_fc = gc - (1.0 + rb + ra) * g_bg
+        if self.has_bump:
+            gb, gb_mu, gb_s = self._gauss_and_derivs(m, mc + p["bump_offset"], s)
+            dens = dens + fc * rb * gb
+            d_mc = d_mc + fc * rb * gb_mu
+            d_s = d_s + fc * rb * gb_s
+            d_fc = d_fc + rb * gb
+            grads["bump_offset"] = fc * rb * gb_mu
+            grads["bump_ratio"] = fc * (gb - g_bg)
+        if self.has_agb:
+            ga, ga_mu, ga_s = self._gauss_and_derivs(m, mc + p["agb_offset"], s)
+            dens = dens + fc * ra * ga
+            d_mc = d_mc + fc * ra * ga_mu
+            d_s = d_s + fc * ra * ga_s
+            d_fc = d_fc + ra * ga
+            grads["agb_offset"] = fc * ra * ga_mu
+            grads["agb_ratio"] = fc * (ga - g_bg)
+        dens = dens + f_bg * g_bg
+        width = self.hi - self.lo
+        if self.background == "exponential":
+            bsl = p["background_slope"]
+            bw = bsl * width
+            tail = width / 2.0 - bsl * width * width / 12.0 if abs(bw) < 1e-4 else 1.0 / bsl - width / math.expm1(bw)
+            grads["background_slope"] = f_bg * g_bg * ((m - self.hi) + tail)
+        else:
+            x = m - 0.5 * (self.lo + self.hi)
+            norm = width + p["quad_a2"] * width ** 3 / 12.0
+            grads["quad_a1"] = f_bg * x / norm
+            grads["quad_a2"] = f_bg * (x * x / norm - g_bg * width ** 3 / (12.0 * norm))
+        grads.update(peak_mag=d_mc, sigma_mag=d_s, fraction_clump=d_fc)
+        dens = np.maximum(dens, 1e-300)
+        inv = 1.0 / dens
+        grad = np.array([-float(np.dot(grads[n], inv)) for n in self.names])
+        return float(-np.sum(np.log(dens))), grad
+
+
 def _build_model(lo: float, hi: float, comps: tuple[str, ...], background: str) -> _Model:
     pr = _priors()
     names, low, up = ["peak_mag", "sigma_mag"], [lo, pr["sigma_min_mag"]], [hi, pr["sigma_max_mag"]]

@@ -172,7 +172,7 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     if obs.completeness_m50 is not None:
         completeness = Completeness(obs.completeness_m50, obs.completeness_width)
     observed, errors, detected = observe_magnitudes(true, rng, error_laws=laws, completeness=completeness,
-                                                    completeness_band=cband)
+                                                    completeness_band=cband if completeness else None)
     t = Table()
     for k, v in cols.items():
         t[k] = v
@@ -187,3 +187,47 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     t.meta["hbmodel_mock"] = {"n_hb_drawn": int(n_hb), "distance_modulus": obs.distance_modulus,
                               "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands)}
     return t
+
+
+class _MockChunk:
+    """Picklable chunk builder for :func:`hbmodel.batch.run_chunked` (one Parquet partition)."""
+
+    def __init__(self, population, bands, obs, hb_fraction):
+        self.population, self.bands, self.obs, self.hb_fraction = population, tuple(bands), obs, hb_fraction
+
+    def __call__(self, index, n, seed_sequence):
+        import pyarrow as pa
+        rng = np.random.default_rng(seed_sequence)
+        parts, have = [], 0
+        while have < n:  # completeness and windows remove stars: draw until the chunk is full
+            n_hb = max(int(np.ceil((n - have) * self.hb_fraction * 1.15)) + 5, 1)
+            t = make_mock(self.population, bands=self.bands, rng=rng, n_hb=n_hb, obs=self.obs)
+            parts.append(t)
+            have += len(t)
+        from astropy.table import vstack
+        t = vstack(parts) if len(parts) > 1 else parts[0]
+        t = t[rng.permutation(len(t))[:n]]  # a random subset keeps the lifetime proportions unbiased
+        t.meta.clear()
+        return pa.table({c: np.asarray(t[c]) for c in t.colnames})
+
+
+def write_chunked_mock(population, *, bands, obs, seed, out_dir, chunk_size, n_hb=None, total_mass_msun=None,
+                       n_jobs=1, scheduler=None, force=False):
+    """Survey-size mock in constant memory: Parquet partitions under ``out_dir`` (see
+    :func:`hbmodel.batch.run_chunked`).  The size is set by ``n_hb`` or ``total_mass_msun``; the total number
+    of catalogue stars follows from the population's lifetime proportions."""
+    from .batch import run_chunked
+    if (n_hb is None) == (total_mass_msun is None):
+        raise ValueError("give exactly one of n_hb and total_mass_msun")
+    if n_hb is None:
+        n_hb = expected_hb_count(population, total_mass_msun)
+    times = population.phase_times()
+    tot = sum(v.sum() for v in times.values())
+    hb_fraction = float(times["hb"].sum() / tot)
+    if obs.window is not None or obs.completeness_m50 is not None:
+        # estimate the kept fraction with a small pilot draw
+        pilot = make_mock(population, bands=bands, rng=np.random.default_rng(seed), n_hb=500, obs=obs)
+        hb_fraction = max(float(np.mean(np.asarray(pilot["phase"]) == "hb")), 1e-3) if len(pilot) else hb_fraction
+    n_total = int(round(n_hb / hb_fraction))
+    return run_chunked(n_total, int(chunk_size), _MockChunk(population, bands, obs, hb_fraction), out_dir,
+                       n_jobs=n_jobs, scheduler=scheduler, force=force, seed=int(seed))
