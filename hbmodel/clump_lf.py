@@ -285,35 +285,26 @@ def _minimise(model: _Model, m: np.ndarray, starts: list[np.ndarray]):
     bounds = list(zip(model.lower, model.upper))
     best = None
     for th0 in starts:
-        res = optimize.minimize(model.nll, th0, args=(m,), method="L-BFGS-B", bounds=bounds,
+        res = optimize.minimize(model.nll_grad, th0, args=(m,), jac=True, method="L-BFGS-B", bounds=bounds,
                                 options={"maxiter": 2000, "ftol": 1e-13, "gtol": 1e-7})
         if best is None or res.fun < best.fun:
             best = res
     if not best.success:  # polish once from the best point (line-search stalls near the optimum)
-        res = optimize.minimize(model.nll, best.x, args=(m,), method="L-BFGS-B", bounds=bounds,
+        res = optimize.minimize(model.nll_grad, best.x, args=(m,), jac=True, method="L-BFGS-B", bounds=bounds,
                                 options={"maxiter": 2000, "ftol": 1e-13, "gtol": 1e-7})
         if res.fun <= best.fun + 1e-9:
             best = res
     return best
 
 
-def _hessian(f, x: np.ndarray, free: np.ndarray, steps: np.ndarray) -> np.ndarray:
-    """Central finite-difference Hessian of ``f`` over the ``free`` coordinates of ``x``."""
+def _hessian(grad, x: np.ndarray, free: np.ndarray, steps: np.ndarray) -> np.ndarray:
+    """Central finite differences of the analytic gradient over the ``free`` coordinates, symmetrised."""
     idx = np.flatnonzero(free)
-    k = idx.size
-    h = np.zeros((k, k))
-    f0 = f(x)
-    for a in range(k):
-        i = idx[a]
-        ei = np.zeros_like(x); ei[i] = steps[i]
-        fp, fm = f(x + ei), f(x - ei)
-        h[a, a] = (fp - 2.0 * f0 + fm) / steps[i] ** 2
-        for b in range(a):
-            j = idx[b]
-            ej = np.zeros_like(x); ej[j] = steps[j]
-            h[a, b] = h[b, a] = (f(x + ei + ej) - f(x + ei - ej) - f(x - ei + ej) + f(x - ei - ej)) / (
-                4.0 * steps[i] * steps[j])
-    return h
+    h = np.zeros((idx.size, idx.size))
+    for a, i in enumerate(idx):
+        e = np.zeros_like(x); e[i] = steps[i]
+        h[:, a] = (grad(x + e)[idx] - grad(x - e)[idx]) / (2.0 * steps[i])
+    return 0.5 * (h + h.T)
 
 
 def _covariance(model: _Model, m: np.ndarray, theta: np.ndarray) -> tuple[np.ndarray, bool]:
@@ -321,13 +312,13 @@ def _covariance(model: _Model, m: np.ndarray, theta: np.ndarray) -> tuple[np.nda
     dist = np.minimum(theta - model.lower, model.upper - theta)
     free = dist > 1e-5 * span
     # ~ 1e-3 mag / 1e-3 in fraction steps, smaller when close to a bound
-    steps = np.minimum(1e-3, 0.5 * dist)
+    steps = np.minimum(1e-4, 0.5 * dist)
     steps = np.where(free, np.maximum(steps, 1e-7), 0.0)
     ncov = theta.size
     cov = np.full((ncov, ncov), np.nan)
     if not free.any():
         return cov, False
-    h = _hessian(lambda t: model.nll(t, m), theta, free, steps)
+    h = _hessian(lambda t: model.nll_grad(t, m)[1], theta, free, steps)
     try:
         c = np.linalg.inv(h)
     except np.linalg.LinAlgError:

@@ -44,3 +44,38 @@ def plot_cmd(table, mag_band: str, colour: tuple, ax=None, title=None):
     if title:
         ax.set_title(title)
     return fig, ax
+
+
+def plot_hb_type_grid(table, ax=None):
+    """HB type versus [Fe/H], one line per value of the series parameter."""
+    if ax is None:
+        fig, ax = new_figure(figsize=(6, 4.5))
+    else:
+        fig = ax.figure
+    series = str(table["series"][0])
+    for v in np.unique(np.asarray(table["series_value"])):
+        sel = np.asarray(table["series_value"]) == v
+        label = f"{v:g} Gyr" if series == "age" else f"eta = {v:g}"
+        ax.plot(np.asarray(table["hb_type"])[sel], np.asarray(table["feh"])[sel], marker="o", ms=3, label=label)
+    ax.set_xlabel("HB type  (B − R)/(B + V + R)")
+    ax.set_ylabel("[Fe/H]")
+    ax.set_xlim(-1.05, 1.05)
+    ax.legend(fontsize=8)
+    return fig, ax
+
+
+def plot_clump_grid(table, band, ax=None):
+    """Clump absolute magnitude versus age, one line per [Fe/H] (the population-correction surface)."""
+    if ax is None:
+        fig, ax = new_figure(figsize=(6, 4.5))
+    else:
+        fig = ax.figure
+    for f in np.unique(np.asarray(table["feh"])):
+        sel = np.asarray(table["feh"]) == f
+        ax.plot(np.asarray(table["age_gyr"])[sel], np.asarray(table[f"M_{band}"])[sel], marker="o", ms=3,
+                label=f"[Fe/H] = {f:+.1f}")
+    ax.set_xlabel("age [Gyr]")
+    ax.set_ylabel(f"clump M_{band}")
+    ax.invert_yaxis()
+    ax.legend(fontsize=7)
+    return fig, ax

@@ -60,3 +60,17 @@ def test_config_file_matches_command_line(tmp_path, capsys):
     # a flag on the command line overrides the file
     c = run_json(capsys, ["predict", "--config", str(cfg), "--eta", "0.30"])
     assert c["mass_loss"] < a["mass_loss"]
+
+
+def test_hb_type_grid_writes_table_and_png(tmp_path):
+    from astropy.table import Table
+    out = tmp_path / "grid"
+    rc = main(["predict", "--feh", "-1.5", "--alpha-fe", "0.3", "--age", "12.5", "--eta", "0.45", "--eta-sd", "0.06",
+               "--grid", "feh=-2.2:-0.6:0.4", "--series", "age=11,13", "--out", str(out)])
+    assert rc == 0
+    t = Table.read(out / "hb_type_grid.ecsv")
+    assert len(t) == 10 and (out / "hb_type_grid.png").stat().st_size > 1000
+    # Lee, Demarque & Zinn 1994: older -> bluer HB at fixed [Fe/H] (second parameter)
+    old = t[(t["series_value"] == 13) & (t["feh"] == -1.4)]["hb_type"][0]
+    young = t[(t["series_value"] == 11) & (t["feh"] == -1.4)]["hb_type"][0]
+    assert old > young

@@ -88,7 +88,7 @@ def test_red_clump_colours():
 
 def test_red_clump_absolute_magnitude_differences():
     # project clump checks M_V = +0.81, M_I = -0.22, M_Ks = -1.54 (common practice)
-    logl = (M_BOL_SUN - 0.81 + float(bolometric_correction("V", *CLUMP))) / 2.5
+    logl = (M_BOL_SUN - 0.81 - float(bolometric_correction("V", *CLUMP))) / 2.5
     m = absolute_magnitudes(*CLUMP, logl)
     assert float(m["V"]) == pytest.approx(0.81, abs=1e-9)
     assert float(m["I"]) == pytest.approx(-0.22, abs=0.03)

@@ -1,27 +1,88 @@
 """``hbmodel predict``: deterministic HB / clump predictions for a population."""
 from __future__ import annotations
 
+import numpy as np
+
 from ._common import add_population_arguments, dumps, population_from_args
 
 NAME = "predict"
 HELP = "predict HB/clump morphology, RR Lyrae content and clump magnitudes for a population"
 DESCRIPTION = """Predict the horizontal branch and red clump of a stellar population.
 
-example:
+examples:
   hbmodel predict --feh -1.5 --alpha-fe 0.3 --age 12.5 --eta 0.45 --eta-sd 0.03 --json
+  hbmodel predict --feh -1.5 --alpha-fe 0.3 --age 12.5 --eta 0.45 \
+      --grid feh=-2.3:-0.5:0.1 --series age=11,12.5,13.5 --out hbtype/
+  hbmodel predict --feh 0 --age 4 --eta 0.3 --clump-grid age=1:12:1,feh=-1:0.4:0.2 --bands I,Ks --out clump/
 """
 
 
 def add_arguments(p):
     add_population_arguments(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    g = p.add_argument_group("grids")
+    g.add_argument("--grid", default=None, help="HB-type diagram over [Fe/H]: feh=START:STOP:STEP")
+    g.add_argument("--series", default=None, help="lines of the HB-type diagram: age=V1,V2,... or eta=V1,...")
+    g.add_argument("--clump-grid", default=None, help="clump magnitudes over age=A:B:S,feh=F:G:S")
+    g.add_argument("--bands", default="I,Ks", help="bands of the clump grid (default I,Ks)")
+    g.add_argument("--out", default=None, help="output directory of a grid (table + PNG)")
+    g.add_argument("--force", action="store_true", help="write into an existing output directory")
 
 
 def _fmt(v, spec=".3f"):
     return "—" if v is None else format(v, spec)
 
 
+def _grid(args):
+    from ..grids import clump_grid, hb_type_grid, parse_range
+    from ..io import atomic_savefig, atomic_write_text, prepare_out_dir, write_table
+    from ..plots import plot_clump_grid, plot_hb_type_grid
+    if not args.out:
+        raise ValueError("a grid needs --out DIR")
+    if args.age is None:
+        raise ValueError("give --age (the base population of the grid)")
+    eta = args.eta if args.eta is not None else 0.45
+    if args.grid:
+        key, _, rng = args.grid.partition("=")
+        if key.strip() != "feh":
+            raise ValueError("--grid must be feh=START:STOP:STEP")
+        fehs = parse_range(rng, "--grid")
+        series, values = "age", np.array([args.age])
+        if args.series:
+            series, _, vals = args.series.partition("=")
+            series = series.strip()
+            values = parse_range(vals, "--series")
+        out = prepare_out_dir(args.out, force=args.force)
+        t = hb_type_grid(fehs, series, values, age_gyr=args.age, alpha_fe=args.alpha_fe, eta=eta,
+                         eta_sd=args.eta_sd, helium=args.helium, law=args.law)
+        write_table(t, out / "hb_type_grid.ecsv", force=args.force)
+        fig, _ = plot_hb_type_grid(t)
+        atomic_savefig(fig, out / "hb_type_grid.png", force=args.force)
+        print(f"wrote {out / 'hb_type_grid.ecsv'} and {out / 'hb_type_grid.png'} ({len(t)} models)")
+        return 0
+    spec = dict(item.split("=", 1) for item in args.clump_grid.split(",feh=", 1)[0:1])
+    try:
+        age_txt = args.clump_grid.split("age=", 1)[1].split(",feh=", 1)[0]
+        feh_txt = args.clump_grid.split("feh=", 1)[1]
+    except IndexError:
+        raise ValueError("--clump-grid must be age=A:B:S,feh=F:G:S") from None
+    del spec
+    ages, fehs = parse_range(age_txt, "--clump-grid age"), parse_range(feh_txt, "--clump-grid feh")
+    bands = [b.strip() for b in args.bands.split(",") if b.strip()]
+    out = prepare_out_dir(args.out, force=args.force)
+    t = clump_grid(ages, fehs, bands, alpha_fe=args.alpha_fe, eta=eta, eta_sd=args.eta_sd, helium=args.helium,
+                   law=args.law)
+    write_table(t, out / "clump_grid.ecsv", force=args.force)
+    for b in bands:
+        fig, _ = plot_clump_grid(t, b)
+        atomic_savefig(fig, out / f"clump_grid_{b}.png", force=args.force)
+    print(f"wrote {out / 'clump_grid.ecsv'} and {len(bands)} plots ({len(t)} models)")
+    return 0
+
+
 def run(args):
+    if args.grid or args.clump_grid:
+        return _grid(args)
     pop = population_from_args(args)
     res = pop.predict()
     if args.json:
