@@ -520,7 +520,7 @@ def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
     n = len(summary)
     x = np.arange(n)
     npan = max(len(keys), 1)
-    fig = Figure(figsize=(max(6.0, 0.35 * n + 3), 1.9 * npan + 0.8))
+    fig = Figure(figsize=(min(max(6.0, 0.35 * n + 3), 20.0), 1.9 * npan + 0.8))
     FigureCanvasAgg(fig)
     axes = fig.subplots(npan, 1, sharex=True, squeeze=False)[:, 0]
     ok = np.array([s != "failed" for s in summary["status"]])
@@ -541,8 +541,10 @@ def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
     for i in np.flatnonzero(~ok):
         for ax in axes:
             ax.axvline(i, color="0.8", lw=6, zorder=0)
-    axes[-1].set_xticks(x)
-    axes[-1].set_xticklabels(list(summary["name"]), rotation=60, ha="right", fontsize=7)
+    step = max(1, math.ceil(n / 50))  # label at most ~50 jobs; more would be unreadable
+    axes[-1].set_xticks(x[::step])
+    axes[-1].set_xticklabels(list(summary["name"])[::step], rotation=60, ha="right", fontsize=7)
+    axes[-1].set_xlabel("job" if step == 1 else f"job (one in {step} labelled)", fontsize=8)
     axes[-1].set_xlim(-0.7, n - 0.3)
     n_fail = int((~ok).sum())
     fig.suptitle(f"hbmodel batch: {n} jobs, {n_fail} failed (grey)", fontsize=9)

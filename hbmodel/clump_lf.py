@@ -311,7 +311,7 @@ def _covariance(model: _Model, m: np.ndarray, theta: np.ndarray) -> tuple[np.nda
     span = model.upper - model.lower
     dist = np.minimum(theta - model.lower, model.upper - theta)
     free = dist > 1e-5 * span
-    # ~ 1e-3 mag / 1e-3 in fraction steps, smaller when close to a bound
+    # 1e-4 steps (mag, per mag, fraction), smaller when close to a bound
     steps = np.minimum(1e-4, 0.5 * dist)
     steps = np.where(free, np.maximum(steps, 1e-7), 0.0)
     ncov = theta.size
@@ -496,7 +496,7 @@ def fit_clump_lf(mag, *, mag_range=None, components=("clump", "rgb", "bump"), n_
         two_dlnl = 2.0 * (-res.fun - ll_bg)
         fc_err = perr.get("fraction_clump", float("nan"))
         weak = (two_dlnl < pr["detect_min_2dlnl"]
-                or not (p["fraction_clump"] > pr["detect_min_nsigma"] * fc_err))
+                or (np.isfinite(fc_err) and not (p["fraction_clump"] > pr["detect_min_nsigma"] * fc_err)))
     else:
         weak = False
     margin = pr["edge_margin_sigma"] * p["sigma_mag"]
@@ -515,7 +515,7 @@ def fit_clump_lf(mag, *, mag_range=None, components=("clump", "rgb", "bump"), n_
         for k in range(n_boot):
             mb = m[rng.integers(0, m.size, m.size)]
             rb = _minimise(model, mb, start)
-            boot[k] = rb.x[0] if rb.success or np.isfinite(rb.fun) else np.nan
+            boot[k] = rb.x[0] if np.isfinite(rb.fun) else np.nan
         boot_err = float(np.nanstd(boot, ddof=1))
 
     if model.has_bg and background == "exponential":

@@ -10,8 +10,10 @@ Broad-band ratios.  A broad band reddens a hot star differently from a cool one,
 because the stellar spectrum weights the passband.  For each band we integrate
 an approximate spectrum -- a blackbody of the star's Teff -- through an
 approximate passband built from the band registry (``tables/bands.csv``: Gaussian
-of FWHM = lambda_hi - lambda_lo, or a top-hat lambda_lo...lambda_hi), photon
-counting (weight F_lambda * lambda * S(lambda)), in the low-extinction limit::
+of FWHM = lambda_hi - lambda_lo, or a top-hat of that width, placed so that its
+photon-weighted mean wavelength for a 9,550 K blackbody is the registry's effective
+wavelength; see :func:`passband`), photon counting (weight F_lambda * lambda *
+S(lambda)), in the low-extinction limit::
 
     A_band / E(B-V) = R_V * < k >_band,   < k > = int k F_lambda lambda S dlambda / int F_lambda lambda S dlambda
 
@@ -37,7 +39,7 @@ from ._validate import as_float_array, check_range
 from .photometry import TEFF_RANGE_K, _Uniform, get_band
 
 __all__ = ["LAWS", "extinction_ratio", "extinction_mag", "apparent_magnitudes",
-           "law_curve"]
+           "law_curve", "passband"]
 
 #: Accepted extinction-law names (``dust_extinction.parameter_averages`` models).
 LAWS = ("F99", "CCM89", "G23")
@@ -73,19 +75,40 @@ def law_curve(law: str, rv: float, wavelength_um) -> np.ndarray:
     return np.asarray(model(x / u.micron), dtype=float)
 
 
-def _passband(band):
-    """Wavelength grid (micron) and relative response of the approximate passband."""
-    lo, hi = band.lambda_lo_um, band.lambda_hi_um
-    if band.shape == "gaussian":
-        centre, sigma = 0.5 * (lo + hi), (hi - lo) / (2.0 * np.sqrt(2.0 * np.log(2.0)))
-        lam = np.linspace(centre - 3.0 * sigma, centre + 3.0 * sigma, _NLAM)
-        resp = np.exp(-0.5 * ((lam - centre) / sigma) ** 2)
-    elif band.shape == "tophat":
-        lam = np.linspace(lo, hi, _NLAM)
-        resp = np.ones_like(lam)
+def _planck_photons(lam_um, teff_k):
+    """Blackbody photon flux per unit wavelength, up to a constant: lambda^-4 / (exp(c2/lambda T) - 1)."""
+    return lam_um ** -4 / np.expm1(_C2_UM_K / (lam_um * teff_k))
+
+
+def passband(band) -> tuple[np.ndarray, np.ndarray]:
+    """Approximate passband of ``band``: wavelength grid (micron) and relative response.
+
+    Shape and width from the registry (Gaussian of FWHM = lambda_hi - lambda_lo, or a
+    top-hat of that width); the band is then placed so that its photon-weighted mean
+    wavelength for a 9,550 K (A0 V, Vega-like) blackbody equals the registry's
+    effective wavelength ``lambda_eff_um``.
+    """
+    b = get_band(band) if isinstance(band, str) else band
+    lo, hi = b.lambda_lo_um, b.lambda_hi_um
+    if b.shape == "gaussian":
+        sigma = (hi - lo) / (2.0 * np.sqrt(2.0 * np.log(2.0)))
+        u = np.linspace(-3.0, 3.0, _NLAM)
+        resp = np.exp(-0.5 * u * u)
+        offsets = sigma * u
+    elif b.shape == "tophat":
+        offsets = np.linspace(-0.5, 0.5, _NLAM) * (hi - lo)
+        resp = np.ones(_NLAM)
     else:
-        raise ValueError(f"band {band.name!r} has unknown passband shape {band.shape!r}")
-    return lam, resp
+        raise ValueError(f"band {b.name!r} has unknown passband shape {b.shape!r}")
+    centre = 0.5 * (lo + hi)
+    for _ in range(20):  # fixed-point iteration on the centre (converges in a few steps)
+        lam = centre + offsets
+        w = resp * _planck_photons(lam, 9550.0)
+        shift = b.lambda_eff_um - float((w * lam).sum() / w.sum())
+        centre += shift
+        if abs(shift) < 1e-7:
+            break
+    return centre + offsets, resp
 
 
 def _check_rv(rv) -> float:
@@ -98,12 +121,12 @@ def _check_rv(rv) -> float:
 @functools.lru_cache(maxsize=256)
 def _ratio_grid(band_name: str, law: str, rv: float) -> _Uniform:
     band = get_band(band_name)
-    lam, resp = _passband(band)
+    lam, resp = passband(band)
     k = law_curve(law, rv, lam)
     lo, hi = np.log10(TEFF_RANGE_K[0]), np.log10(TEFF_RANGE_K[1])
     teff = np.logspace(lo, hi, _NGRID)
-    # blackbody F_lambda up to a constant: lambda^-5 / (exp(c2 / (lambda T)) - 1); times lambda (photons)
-    w = resp * lam ** -4 / np.expm1(_C2_UM_K / (lam[None, :] * teff[:, None]))
+    # photon-counting weight F_lambda * lambda * S(lambda), blackbody F_lambda
+    w = resp * _planck_photons(lam[None, :], teff[:, None])
     ratio = rv * (w * k).sum(axis=1) / w.sum(axis=1)
     return _Uniform(lo, hi, _NGRID, {"r": ratio})
 

@@ -182,10 +182,19 @@ def _theta_root(c, theta, feh):
     """Colour X solving theta = a0 + a1 X + a2 X^2 + a3 X F + a4 F + a5 F^2 (increasing branch)."""
     a = c[2]
     b = c[1] + c[3] * feh
-    cc = c[0] + c[4] * feh + c[5] * feh * feh - theta
-    disc = np.sqrt(np.maximum(b * b - 4.0 * a * cc, 0.0))
+    cc = c[5] * feh + c[4]
+    cc *= feh
+    cc += c[0]
+    cc -= theta
+    disc = b * b
+    disc -= (4.0 * a) * cc
+    np.maximum(disc, 0.0, out=disc)
+    np.sqrt(disc, out=disc)
+    disc += b
     # root on the branch where d theta / dX > 0, written in the cancellation-free form
-    return -2.0 * cc / (b + disc)
+    cc *= -2.0
+    cc /= disc
+    return cc
 
 
 def _uv_excess(feh):

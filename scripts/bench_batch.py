@@ -54,6 +54,28 @@ def peak_fit_task(job: dict, job_dir: pathlib.Path) -> dict:
             "peak_frac": float(best[0]), "peak_sigma": float(np.exp(best[2]))}
 
 
+def _burn(n: int) -> int:
+    s = 0
+    for i in range(n):
+        s += i * i
+    return s
+
+
+def machine_parallelism(n: int = 4_000_000) -> float:
+    """Control: speed-up of two pure-Python burns in 2 processes vs 1 (ideal 2.0 on an idle 2-core box)."""
+    import multiprocessing as mp
+
+    with mp.get_context("spawn").Pool(2) as pool:
+        pool.map(_burn, [10, 10])  # start the workers
+        t0 = time.perf_counter()
+        pool.map(_burn, [n, n])
+        t_par = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    _burn(n), _burn(n)
+    t_ser = time.perf_counter() - t0
+    return t_ser / t_par
+
+
 def bench_speedup(tmp: pathlib.Path, n_jobs_list=(1, 2), n_fields=8, n_stars=20000) -> dict:
     rng = np.random.default_rng(1)
     jobs = []
@@ -116,6 +138,10 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="smaller problem (smoke test)")
     args = ap.parse_args(argv)
+    import os
+
+    print(f"load average at start: {os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs; "
+          f"control (2 pure-Python processes vs 1): {machine_parallelism():.2f}x")
     with tempfile.TemporaryDirectory() as d:
         r = bench_speedup(pathlib.Path(d), n_stars=4000 if args.quick else 20000)
     t1, t2 = r["times"][1], r["times"][2]
@@ -123,6 +149,8 @@ def main(argv=None) -> int:
     print(f"  n_jobs=1: {t1:7.2f} s")
     print(f"  n_jobs=2: {t2:7.2f} s   speed-up {t1 / t2:.2f}x (target >= 1.7x)")
     print(f"  results identical between n_jobs=1 and 2: {r['identical']}")
+    print(f"  control after: {machine_parallelism():.2f}x; load average {os.getloadavg()[0]:.2f} "
+          "(a speed-up below target with a control well below 2 means other load on the machine)")
     n_list = (10**5, 10**6) if args.quick else (10**6, 10**7)
     mem = bench_memory(n_list)
     print("run_chunked, 4 float64 columns, chunk_size 250000, n_jobs=1, fresh subprocess each")

@@ -264,6 +264,49 @@ def test_kill_and_resume(jobs_file, tmp_path):
     _same_summary(ref, s)
 
 
+def slow_counting_task(job, job_dir):
+    import time
+    time.sleep(0.3)
+    return counting_task(job, job_dir)
+
+
+def test_sigkill_parallel_run_and_resume(jobs_file, tmp_path):
+    import signal
+    import time
+
+    out, log = tmp_path / "out", tmp_path / "calls.log"
+    script = tmp_path / "victim.py"
+    script.write_text(textwrap.dedent(f"""
+        import sys
+        sys.path.insert(0, {str(pathlib.Path(__file__).parent)!r})
+        from test_batch import slow_counting_task
+        from hbmodel.batch import read_jobs, run_batch
+        t = read_jobs({str(jobs_file)!r})
+        t["calls_log"] = {str(log)!r}
+        run_batch(t, slow_counting_task, {str(out)!r}, n_jobs=2)
+    """))
+    proc = subprocess.Popen([sys.executable, str(script)], start_new_session=True,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 90
+        while len(list(out.glob("*/result.json"))) < 2 and time.monotonic() < deadline \
+                and proc.poll() is None:
+            time.sleep(0.05)
+    finally:
+        os.killpg(proc.pid, signal.SIGKILL)  # the run and its workers die without cleanup
+        proc.wait()
+    done_before = {p.parent.name: p.stat().st_mtime_ns for p in out.glob("*/result.json")}
+    assert 2 <= len(done_before) <= 5
+    t = read_jobs(jobs_file)
+    t["calls_log"] = str(log)
+    s = run_batch(t, counting_task, out, n_jobs=2)
+    assert list(s["status"]).count("skipped-done") == len(done_before)
+    assert set(s["status"]) <= {"done", "skipped-done"}
+    assert {n: (out / n / "result.json").stat().st_mtime_ns for n in done_before} == done_before
+    ref = run_batch(t, gauss_mag_task, tmp_path / "ref")
+    _same_summary(ref, s)
+
+
 def test_progress_bar_forced(jobs_file, tmp_path, capsys):
     run_batch(jobs_file, gauss_mag_task, tmp_path / "out", progress=True)
     assert "5/5" in capsys.readouterr().err
