@@ -196,7 +196,7 @@ def read_jobs(path) -> "astropy.table.Table":  # noqa: F821
     fmt = "ascii.ecsv" if head.lstrip().startswith(b"# %ECSV") or path.suffix.lower() == ".ecsv" \
         else "ascii.csv"
     try:
-        table = Table.read(path, format=fmt)
+        table = Table.read(path, format=fmt, **({"comment": "#"} if fmt == "ascii.csv" else {}))
     except Exception as exc:  # astropy raises many types for malformed tables
         raise ValueError(f"cannot read jobs file {path} as {fmt[6:].upper()}: {_reason(exc)}") from None
     if "name" not in table.colnames:
@@ -383,9 +383,8 @@ def _executor(n_jobs, scheduler):
     except ImportError:
         raise ValueError("scheduler= needs dask[distributed]: pip install 'hbmodel[dask]'") from None
     if isinstance(scheduler, distributed.Client):
-        with joblib.parallel_config(backend="dask"):  # uses the default (current) client
-            with scheduler.as_current():
-                yield -1
+        with scheduler.as_current(), joblib.parallel_config(backend="dask"):
+            yield -1
         return
     if not isinstance(scheduler, str) or not scheduler.strip():
         raise ValueError(f"scheduler must be an address such as 'tcp://127.0.0.1:8786', got {scheduler!r}")

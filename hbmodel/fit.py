@@ -154,7 +154,7 @@ class MassLossFit:
     """
 
     def __init__(self, population=None, priors=None, model="spread", *, bands=("V", "I"), region=None,
-                 completeness=None, zero_points=True, sampler="emcee", compare_models=True, n_walkers=24,
+                 completeness=None, zero_points=True, sampler="emcee", compare_models=True, n_walkers=16,
                  max_steps=6000, chunk=500, seed=0, rv=3.1, law="F99", error_model=None):
         self.population = population
         self.priors = priors
@@ -290,7 +290,8 @@ class MassLossFit:
                                           col_range=col_range, mag_range=mag_range, shift_c=float(s_mu[0]),
                                           shift_m=float(s_mu[1]), age_sd_gyr=pri.age_sd_gyr or 0.0,
                                           delta_y_max=dy_max)
-        self.likelihood_ = CMDLikelihood(self.surrogate_, colour[inr], mag[inr], region, self.completeness)
+        self.likelihood_ = CMDLikelihood(self.surrogate_, colour[inr], mag[inr], region, self.completeness,
+                                         shift_lo=self._shift_lo, shift_hi=self._shift_hi)
         self.data_ = {"colour": colour[inr], "mag": mag[inr]}
 
     def _prepare_masses(self, masses):
@@ -501,7 +502,15 @@ class MassLossFit:
 
     # ------------------------------------------------------------------ fit
     def fit(self, catalog=None, masses=None):
-        """Fit a catalogue (astropy Table or dict with ``<band>``, ``<band>_err``) and/or measured masses."""
+        """Fit a catalogue (astropy Table or dict with ``<band>``, ``<band>_err``) and/or measured masses.
+
+        BLAS runs single-threaded during the fit: the products here are small, and multi-threaded
+        OpenBLAS on a busy machine is many times slower for them (measured: scripts/bench_fit.py)."""
+        from threadpoolctl import threadpool_limits
+        with threadpool_limits(1, "blas"):
+            return self._fit(catalog, masses)
+
+    def _fit(self, catalog, masses):
         t_start = time.perf_counter()
         pri, bands = self._check()
         self._pri = pri
@@ -578,13 +587,25 @@ class MassLossFit:
         d = len(names)
         nw = max(int(self.n_walkers), 2 * d + 2)
         nw += nw % 2
-        steps = self._steps(names) * 0.1
-        p0 = x_map[None] + steps[None] * rng.standard_normal((nw, d))
+        # start from the Laplace approximation at the MAP (little burn-in needed)
+        try:
+            cov = self._laplace(names, x_map)
+            p0 = rng.multivariate_normal(x_map, 0.25 * cov, size=nw)
+        except (np.linalg.LinAlgError, ValueError):
+            p0 = x_map[None] + 0.1 * self._steps(names)[None] * rng.standard_normal((nw, d))
         for i, n in enumerate(names):
             lo, hi = self._bnds[n]
-            p0[:, i] = np.clip(p0[:, i], lo + 1e-6 * (hi - lo), hi - 1e-6 * (hi - lo))
+            x = p0[:, i]
+            x = np.where(x < lo, 2 * lo - x, x)  # reflect into the prior box
+            x = np.where(x > hi, 2 * hi - x, x)
+            p0[:, i] = np.clip(x, lo + 1e-9 * (hi - lo), hi - 1e-9 * (hi - lo))
         f = self._log_post_fn(names)
-        sampler = emcee.EnsembleSampler(nw, d, f, vectorize=True, seed=int(rng.integers(2 ** 31)))
+        # differential-evolution moves (ter Braak 2006; ter Braak & Vrugt 2008) mix faster than the stretch
+        # move on these near-Gaussian posteriors
+        moves = [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
+        sampler = emcee.EnsembleSampler(nw, d, f, vectorize=True, moves=moves)
+        # emcee draws from its own RandomState: seed it from our Generator (reproducible, no global state)
+        sampler.random_state = np.random.RandomState(int(rng.integers(2 ** 31))).get_state()
         state = p0
         tau = np.full(d, np.inf)
         factor = fit_constants()["tau_factor"]
@@ -594,13 +615,13 @@ class MassLossFit:
             state = sampler.run_mcmc(state, k, progress=False)
             n_done += k
             # autocorrelation from the second half (early part is burn-in from the MAP ball)
-            ch = sampler.get_chain()[n_done // 3:]
+            ch = sampler.get_chain()[n_done // 5:]
             tau = emcee.autocorr.integrated_time(ch, quiet=True, tol=0)
             if np.all(np.isfinite(tau)) and ch.shape[0] > factor * np.max(tau):
                 break
         self.n_steps_ = n_done
         ch = sampler.get_chain()
-        burn = n_done // 3
+        burn = n_done // 5
         taumax = float(np.max(tau))
         self.autocorr_time_ = {n: float(t) for n, t in zip(names, tau)}
         self.converged_ = bool(np.all(np.isfinite(tau)) and (n_done - burn) > factor * taumax)

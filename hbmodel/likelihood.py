@@ -160,13 +160,12 @@ class HBSurrogate:
     def tip_mass_at(self, age_gyr, j=0):
         return np.interp(age_gyr, self.age_grid, self.tip_mass[j])
 
-    def images(self, mass_loss, mass_loss_sd, age_gyr, helium_fraction=None, delta_y=None):
-        """Model images (n, n_mag, n_col) for parameter arrays of length n (vectorised over walkers)."""
+    def blocks(self, mass_loss, mass_loss_sd, age_gyr, helium_fraction=None, delta_y=None):
+        """Weights of the basis images: list of (helium node j, first node a, weights (n, b-a), rgb amp (n,))."""
         mu = np.atleast_1d(np.asarray(mass_loss, float))
         n = mu.size
         sd = np.broadcast_to(np.asarray(mass_loss_sd, float), (n,))
         age = np.broadcast_to(np.asarray(age_gyr, float), (n,))
-        nm, nc = self.shape
         parts = [(0, np.ones(n))]
         if helium_fraction is not None and len(self.delta_y_nodes) > 1:
             fhe = np.broadcast_to(np.asarray(helium_fraction, float), (n,))
@@ -179,16 +178,30 @@ class HBSurrogate:
             for j in range(len(nodes)):
                 a = np.where(j0 == j, 1.0 - t, 0.0) + np.where(j0 + 1 == j, t, 0.0)
                 parts.append((j, fhe * a))
-        out = np.zeros((n, nm * nc), np.float32)
+        out = []
         for j, amp in parts:
             if not np.any(amp > 0):
                 continue
             m_hb = self.tip_mass_at(age, j) - mu
             w = hat_gaussian_weights(self.mass_grid, self.mass_step, m_hb, sd) * amp[:, None]
-            keep = np.flatnonzero(w.max(axis=0) > 1e-10 * max(w.max(), 1e-300))
-            if keep.size:  # a contiguous slice of nodes: a view, no copy of the basis
+            keep = np.flatnonzero(w.max(axis=0) > 1e-9 * max(w.max(), 1e-300))
+            if keep.size:  # a contiguous slice of nodes: a view of the basis, no copy
                 a, b = int(keep[0]), int(keep[-1]) + 1
-                out += np.ascontiguousarray(w[:, a:b], np.float32) @ self.hb_images[j][a:b]
+                out.append((j, a, w[:, a:b], amp))
+            else:
+                out.append((j, 0, w[:, :0], amp))
+        return out
+
+    def images(self, mass_loss, mass_loss_sd, age_gyr, helium_fraction=None, delta_y=None, blocks=None):
+        """Model images (n, n_mag, n_col) for parameter arrays of length n (vectorised over walkers)."""
+        if blocks is None:
+            blocks = self.blocks(mass_loss, mass_loss_sd, age_gyr, helium_fraction, delta_y)
+        n = blocks[0][2].shape[0]
+        nm, nc = self.shape
+        out = np.zeros((n, nm * nc), np.float32)
+        for j, a, w, amp in blocks:
+            if w.shape[1]:
+                out += np.ascontiguousarray(w, np.float32) @ self.hb_images[j][a:a + w.shape[1]]
             out += amp[:, None].astype(np.float32) * self.rgb_images[j][None, :]
         return out.reshape(n, nm, nc)
 
@@ -387,7 +400,8 @@ class CMDLikelihood:
     ``colour``/``mag``: observed values of the stars inside ``region`` = (cmin, cmax, mbright, mfaint).
     ``completeness``: callable of the observed first-band magnitude (or None)."""
 
-    def __init__(self, surrogate: HBSurrogate, colour, mag, region, completeness=None):
+    def __init__(self, surrogate: HBSurrogate, colour, mag, region, completeness=None, *, shift_lo, shift_hi,
+                 n_shift=41):
         self.s = surrogate
         self.colour = np.asarray(colour, float)
         self.mag = np.asarray(mag, float)
@@ -399,11 +413,66 @@ class CMDLikelihood:
         self.n = self.colour.size
         mcen = 0.5 * (surrogate.mag_edges[1:] + surrogate.mag_edges[:-1])
         self._mcen = mcen
+        self.shift_lo = np.asarray(shift_lo, float)
+        self.shift_hi = np.asarray(shift_hi, float)
+        self._build_norm_tables(n_shift)
 
-    def _normalisation(self, img, sc, sm):
-        """Integral of c(m) rho(x - s) over the region, per walker (summed-area table; smooth in s)."""
+    def _build_norm_tables(self, n_shift):
+        """Region integral of every basis image on a grid of shifts (bilinear in the shift afterwards)."""
+        s = self.s
+        self._gc = np.linspace(self.shift_lo[0], self.shift_hi[0], n_shift)
+        self._gm = np.linspace(self.shift_lo[1], self.shift_hi[1], n_shift)
+        gc, gm = self._gc, self._gm
+        nm, nc = s.shape
+        tabs_hb, tabs_rgb = [], []
+        for j in range(len(s.hb_images)):
+            imgs = np.concatenate([s.hb_images[j], s.rgb_images[j][None]], axis=0).reshape(-1, nm, nc)
+            z = np.empty((imgs.shape[0], gc.size, gm.size))
+            for a in range(0, imgs.shape[0], 64):  # chunks of basis images (memory)
+                z[a:a + 64] = self._normalisation(imgs[a:a + 64], gc, gm, grid=True)
+            tabs_hb.append(z[:-1])
+            tabs_rgb.append(z[-1])
+        self._ztab_hb, self._ztab_rgb = tabs_hb, tabs_rgb
+
+    def _norm_from_tables(self, blocks, sc, sm):
+        u = np.clip((sc - self._gc[0]) / (self._gc[1] - self._gc[0]), 0, self._gc.size - 1 - 1e-9)
+        v = np.clip((sm - self._gm[0]) / (self._gm[1] - self._gm[0]), 0, self._gm.size - 1 - 1e-9)
+        i, k = u.astype(int), v.astype(int)
+        tu, tv = u - i, v - k
+        z = np.zeros(sc.size)
+        for j, a, w, amp in blocks:
+            def bil(t):  # t: (..., n_c, n_m) -> values per walker
+                return ((t[..., i, k] * (1 - tu) + t[..., i + 1, k] * tu) * (1 - tv)
+                        + (t[..., i, k + 1] * (1 - tu) + t[..., i + 1, k + 1] * tu) * tv)
+            if w.shape[1]:
+                zt = bil(self._ztab_hb[j][a:a + w.shape[1]])  # (b-a, n)
+                z += np.einsum("nk,kn->n", w, zt)
+            z += amp * bil(self._ztab_rgb[j])
+        return z
+
+    def _normalisation(self, img, sc, sm, grid=False):
+        """Integral of c(m) rho(x - s) over the region (summed-area table; piecewise linear in s).
+
+        Per walker (``sc``, ``sm`` of length n), or with ``grid=True`` for every image on the grid
+        ``sc`` x ``sm`` -> (n, len(sc), len(sm))."""
         s = self.s
         n, nm, nc = img.shape
+        if grid:
+            cs = np.concatenate([np.zeros((n, nm, 1)), np.cumsum(img, axis=2, dtype=np.float64)], axis=2) * s.dc
+            cmin, cmax, mb, mf = self.region
+            def at_g(xc):  # (n, nm, len(xc))
+                u = np.clip((xc - s.col_edges[0]) / s.dc, 0, nc - 1e-9)
+                j = np.floor(u).astype(int)
+                t = u - j
+                return cs[:, :, j] * (1 - t) + cs[:, :, j + 1] * t
+            rows = at_g(cmax - sc) - at_g(cmin - sc)  # (n, nm, Gc)
+            lo = (mb - sm)[None, :]
+            hi = (mf - sm)[None, :]
+            e0, e1 = s.mag_edges[:-1, None], s.mag_edges[1:, None]
+            overlap = np.clip(np.minimum(e1, hi) - np.maximum(e0, lo), 0, None)  # (nm, Gm)
+            if self.completeness is not None:
+                overlap = overlap * np.asarray(self.completeness(self._mcen[:, None] + sm[None, :]))
+            return np.einsum("nrc,rm->ncm", rows, overlap)
         cmin, cmax, mb, mf = self.region
         cs = np.concatenate([np.zeros((n, nm, 1)), np.cumsum(img, axis=2, dtype=np.float64)], axis=2) * s.dc
         def at(xc):  # cumulative along colour at intrinsic colours xc (n,)
@@ -449,11 +518,12 @@ class CMDLikelihood:
         shift_mag, field_fraction, optional helium_fraction, delta_y); returns shape (n,)."""
         mu = np.atleast_1d(p["mass_loss"])
         n = mu.size
-        img = self.s.images(mu, p["mass_loss_sd"], p["age"], p.get("helium_fraction"), p.get("delta_y"))
+        blocks = self.s.blocks(mu, p["mass_loss_sd"], p["age"], p.get("helium_fraction"), p.get("delta_y"))
+        img = self.s.images(None, None, None, blocks=blocks)
         sc = np.broadcast_to(np.asarray(p["shift_colour"], float), (n,))
         sm = np.broadcast_to(np.asarray(p["shift_mag"], float), (n,))
         f = np.broadcast_to(np.asarray(p["field_fraction"], float), (n,))
-        z = self._normalisation(img, sc, sm)
+        z = self._norm_from_tables(blocks, sc, sm)
         rho = self.density_at(img, sc, sm)
         with np.errstate(divide="ignore", invalid="ignore"):
             pm = (1 - f)[:, None] * self.c_star[None, :] * rho / z[:, None] + (f / self.area)[:, None]

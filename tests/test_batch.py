@@ -128,6 +128,20 @@ def test_read_jobs_ecsv(tmp_path):
     assert t["catalog"][0] == "/abs/x.csv" and t["catalog"][1] == str(tmp_path.resolve() / "rel.csv")
 
 
+def test_read_jobs_comments_quotes_and_blank_cells(tmp_path):
+    (tmp_path / "jobs.csv").write_text('# invented fields\nname,bands,age\nA,"G,BP,RP",10\nB,G,\n')
+    t = read_jobs(tmp_path / "jobs.csv")
+    assert list(t["bands"]) == ["G,BP,RP", "G"]
+    s = run_batch(t, _echo_task, tmp_path / "out")
+    # a blank cell means "option not given": the task does not see the key at all
+    assert list(s["has_age"]) == [True, False]
+    assert list(s["seed"]) == [zlib.crc32(b"A"), zlib.crc32(b"B")]
+
+
+def _echo_task(job, job_dir):
+    return {"has_age": "age" in job, "seed": job["seed"]}
+
+
 @pytest.mark.parametrize("content, match", [
     ("name,feh\nA,1\nB,2\nA,3\nB,4\nC,5\n", "duplicate job name.*A, B"),
     ("cluster,feh\nA,1\n", "no 'name' column"),
@@ -355,7 +369,10 @@ def test_dask_matches_local(jobs_file, tmp_path, dask_cluster):
     _same_summary(local, remote)
     assert _results(tmp_path / "local") == _results(tmp_path / "dask")
     # chunked generation through the same cluster gives the same bytes of data
-    p_dask = run_chunked(1000, 300, _normal_chunk, tmp_path / "cd", scheduler=dask_cluster.scheduler_address)
+    # (here through an existing distributed.Client instead of an address)
+    import distributed
+    with distributed.Client(dask_cluster.scheduler_address, set_as_default=False) as client:
+        p_dask = run_chunked(1000, 300, _normal_chunk, tmp_path / "cd", scheduler=client)
     p_loc = run_chunked(1000, 300, _normal_chunk, tmp_path / "cl", n_jobs=1)
     assert all(pq.read_table(a).equals(pq.read_table(b)) for a, b in zip(p_dask, p_loc))
 

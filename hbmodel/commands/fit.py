@@ -1,0 +1,150 @@
+"""``hbmodel fit``: infer the RGB mass loss and its dispersion from an observed HB / red clump."""
+from __future__ import annotations
+
+import math
+
+NAME = "fit"
+HELP = "infer the mean RGB mass loss and its star-to-star spread from an HB/clump catalogue (and/or masses)"
+DESCRIPTION = """Fit the HB / red clump of a catalogue (columns <band>, <band>_err) with the hbmodel surrogate and
+emcee; and/or a table of measured masses (columns mass, mass_err, phase = rgb|clump).
+
+examples:
+  hbmodel fit cluster.ecsv --bands V,I --feh -1.6 --alpha-fe 0.3 --age 12.5 --age-sd 1 \\
+      --distance-modulus 15.0 --dm-sd 0.05 --ebv 0.05 --ebv-sd 0.01 --out result/ --json
+  hbmodel fit --masses giants.csv --feh 0.3 --age 8 --age-sd 1 --json
+"""
+
+
+def add_arguments(p):
+    p.add_argument("catalog", nargs="?", default=None, metavar="CATALOG",
+                   help="photometric catalogue (CSV, ECSV, FITS, VOTable, Parquet)")
+    p.add_argument("--bands", default="V,I", help="FIRST,SECOND: magnitude axis FIRST, colour FIRST-SECOND")
+    g = p.add_argument_group("population")
+    g.add_argument("--feh", type=float, required=True, help="[Fe/H] (dex)")
+    g.add_argument("--alpha-fe", type=float, default=0.0, help="[alpha/Fe] (dex), default 0")
+    g.add_argument("--age", type=float, required=True, help="age in Gyr (prior mean)")
+    g.add_argument("--age-sd", type=float, default=None, help="prior width of the age (Gyr); default: fixed")
+    g.add_argument("--helium", type=float, default=None, help="initial helium Y (default: enrichment law)")
+    n = p.add_argument_group("nuisance priors")
+    n.add_argument("--distance-modulus", type=float, default=None, help="prior mean of the distance modulus")
+    n.add_argument("--dm-sd", type=float, default=0.1, help="prior width of the distance modulus (default 0.1)")
+    n.add_argument("--ebv", type=float, default=0.0, help="prior mean of E(B-V) (default 0)")
+    n.add_argument("--ebv-sd", type=float, default=0.02, help="prior width of E(B-V) (default 0.02)")
+    n.add_argument("--no-zero-points", action="store_true", help="fix the colour/magnitude zero points at 0")
+    p.add_argument("--model", choices=("spread", "helium", "both"), default="spread",
+                   help="mass-loss spread, helium spread, or both (default spread)")
+    p.add_argument("--no-compare", action="store_true", help="skip the model comparison")
+    p.add_argument("--region", default=None, metavar="CMIN,CMAX,MBRIGHT,MFAINT",
+                   help="fitted CMD box (default: model HB/clump extent plus margins)")
+    p.add_argument("--columns", default=None, metavar="V=vmag,I=imag,...",
+                   help="map canonical names to catalogue columns")
+    p.add_argument("--masses", default=None, metavar="FILE", help="measured masses: mass, mass_err, phase")
+    p.add_argument("--sampler", choices=("emcee", "laplace"), default="emcee")
+    p.add_argument("--max-steps", type=int, default=6000, help="longest emcee chain (steps)")
+    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--out", default=None, metavar="DIR", help="write result.json, posterior.ecsv and plots")
+    p.add_argument("--force", action="store_true", help="allow writing into a non-empty --out directory")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+
+
+def _floats(text, n, what):
+    try:
+        vals = [float(v) for v in str(text).split(",")]
+    except ValueError:
+        raise ValueError(f"{what} must be {n} comma-separated numbers (got {text!r})") from None
+    if len(vals) != n or not all(math.isfinite(v) for v in vals):
+        raise ValueError(f"{what} must be {n} comma-separated finite numbers (got {text!r})")
+    return vals
+
+
+def _columns(text):
+    if not text:
+        return None
+    out = {}
+    for item in str(text).split(","):
+        if "=" not in item:
+            raise ValueError(f"--columns entries must be NAME=column (got {item!r})")
+        k, v = (s.strip() for s in item.split("=", 1))
+        out[k] = v
+    return out
+
+
+def run(args):
+    import numpy as np
+    from ..fit import MassLossFit, Priors
+    from ..io import atomic_savefig, atomic_write_json, prepare_out_dir, read_catalog, write_table
+    from ..photometry import get_band
+    from ..population import Population
+    from ._common import dumps
+
+    bands = tuple(b.strip() for b in str(args.bands).split(","))
+    if len(bands) != 2 or not all(bands):
+        raise ValueError(f"--bands must be two bands FIRST,SECOND (got {args.bands!r})")
+    for b in bands:
+        get_band(b)
+    if args.catalog is None and args.masses is None:
+        raise ValueError("give a CATALOG and/or --masses FILE")
+    if not (math.isfinite(args.age) and args.age > 0):
+        raise ValueError(f"--age must be a positive number of Gyr (got {args.age:g})")
+    for name in ("dm_sd", "ebv_sd", "age_sd"):
+        v = getattr(args, name)
+        if v is not None and not (math.isfinite(v) and v > 0):
+            raise ValueError(f"--{name.replace('_', '-')} must be positive: a prior of zero width (got {v:g})")
+    if args.max_steps < 100:
+        raise ValueError("--max-steps must be at least 100")
+    region = _floats(args.region, 4, "--region") if args.region else None
+    # read everything before touching the output directory
+    cat = None
+    if args.catalog is not None:
+        cols = _columns(args.columns)
+        cat = read_catalog(args.catalog, columns=cols, required=list(bands) + [f"{b}_err" for b in bands])
+    masses = read_catalog(args.masses, required=("mass", "mass_err")) if args.masses else None
+    if cat is not None and args.distance_modulus is None:
+        raise ValueError("a CMD fit needs --distance-modulus DM (prior mean; width --dm-sd)")
+    pop = Population(args.feh, args.age, alpha_fe=args.alpha_fe, helium=args.helium)
+    pri = Priors(distance_modulus=None if args.distance_modulus is None else (args.distance_modulus, args.dm_sd),
+                 ebv=(args.ebv, args.ebv_sd), age_sd_gyr=args.age_sd)
+    out_dir = None
+    if args.out:
+        from pathlib import Path
+        p = Path(args.out)
+        if p.is_dir() and any(p.iterdir()) and not args.force:
+            raise ValueError(f"output directory {p} exists and is not empty; use --force to overwrite")
+    est = MassLossFit(pop, pri, args.model, bands=bands, region=region, zero_points=not args.no_zero_points,
+                      sampler=args.sampler, compare_models=not args.no_compare and cat is not None,
+                      max_steps=args.max_steps, seed=args.seed)
+    est.fit(cat, masses)
+    res = est.result()
+    if args.out:
+        out_dir = prepare_out_dir(args.out, force=args.force)
+        atomic_write_json(out_dir / "result.json", res, force=args.force)
+        write_table(est.posterior_table(), out_dir / "posterior.ecsv", force=args.force)
+        import matplotlib
+        matplotlib.use("Agg")
+        import matplotlib.pyplot as plt
+        figs = {"corner.png": est.plot_corner(), "hb_mass.png": est.plot_hb_mass()}
+        if cat is not None:
+            figs["hess.png"] = est.plot_hess()
+            figs["cmd.png"] = est.plot_cmd()
+        for name, fig in figs.items():
+            atomic_savefig(fig, out_dir / name, force=args.force, dpi=90)
+            plt.close(fig)
+    if args.json:
+        print(dumps(res))
+        return 0
+    s = res
+    print(f"hbmodel fit: model {est.model}, {est.n_stars_} stars in the region, {est.n_masses_} masses")
+    for k in ("mass_loss", "mass_loss_sd", "hb_mass_mean", "eta", "distance_modulus", "ebv", "helium_fraction",
+              "delta_y"):
+        if k in s and s[k]["median"] is not None:
+            print(f"  {k:18s} {s[k]['median']:.4f}  (+{s[k]['hi'] - s[k]['median']:.4f} / "
+                  f"-{s[k]['median'] - s[k]['lo']:.4f})")
+    c = s["convergence"]
+    print(f"  converged: {c['converged']}  (steps {c['n_steps']}, n_eff {c['n_eff']})")
+    if s.get("model_comparison"):
+        mc = s["model_comparison"]
+        print(f"  preferred model: {mc['preferred']} (dBIC = {mc['delta_bic']:.1f} over {mc['runner_up']}, "
+              f"{mc['strength']})")
+    if out_dir is not None:
+        print(f"  results written to {out_dir}")
+    return 0
