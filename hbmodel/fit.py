@@ -410,7 +410,7 @@ class MassLossFit:
             return ll
         return f
 
-    def _start(self, names):
+    def _start(self, names, scan=True):
         """Initial point: prior centres, and a grid scan over the mean mass loss (one vectorised call)."""
         x0 = []
         for n in names:
@@ -420,6 +420,8 @@ class MassLossFit:
                        "shift_colour": self._shift_mu[0] if self._has_cmd else 0,
                        "shift_mag": self._shift_mu[1] if self._has_cmd else 0}.get(n, 0.5 * (lo + hi)))
         x0 = np.array(x0, float)
+        if not scan:
+            return x0
         lo, hi = self._bnds["mass_loss"]
         grid = np.linspace(lo + 1e-3, hi - 1e-3, 80)
         th = np.repeat(x0[None], grid.size, 0)
@@ -450,11 +452,11 @@ class MassLossFit:
         steps = self._steps(names)
         best = None
         x = x0
-        for _ in range(3):  # restarts shake Nelder-Mead out of a collapsed simplex
+        for _ in range(2):  # a restart shakes Nelder-Mead out of a collapsed simplex
             simplex = [x] + [x + np.eye(len(x))[i] * steps[i] * np.where(x[i] + steps[i] > self._bnds[n][1], -1, 1)
                              for i, n in enumerate(names)]
             r = minimize(lambda t: -float(f(t)[0]) if np.isfinite(f(t)[0]) else 1e300, x, method="Nelder-Mead",
-                         options=dict(initial_simplex=np.array(simplex), maxiter=3000, xatol=1e-5, fatol=1e-4,
+                         options=dict(initial_simplex=np.array(simplex), maxiter=400 * len(x), xatol=1e-5, fatol=2e-3,
                                       adaptive=True))
             if best is not None and best.fun - r.fun < 0.05:
                 best = r if r.fun < best.fun else best
@@ -707,8 +709,12 @@ class MassLossFit:
             nm = self._param_names(m)
             if m == self.model:
                 x, lp = x_map, None
-            else:
-                x, lp = self._map(nm)
+            else:  # start from this fit's MAP, new parameters at their default starting values
+                x0 = self._start(nm, scan=False)
+                for i, name in enumerate(nm):
+                    if name in names:
+                        x0[i] = x_map[names.index(name)]
+                x, lp = self._map(nm, x0=x0)
             ll = float(self._log_like_fn(nm)(x[None])[0])
             k = len(nm)
             res[m] = {"max_log_likelihood": ll, "n_params": k, "bic": k * np.log(n) - 2 * ll, "aic": 2 * k - 2 * ll}

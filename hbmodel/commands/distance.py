@@ -121,10 +121,19 @@ def run(args):
     d = res.to_dict()
     if out is not None:
         from ..clump_lf import plot_clump_lf
+        from ..reports import run_record, write_report
         atomic_write_json(out / "result.json", d, force=args.force)
+        atomic_write_json(out / "config.json", run_record("distance", args), force=args.force)
         fig, ax = plot_clump_lf(mag[np.isfinite(mag)], res.lf)
         ax.set_title(f"clump LF in {args.band}: DM = {res.distance_modulus['median']:.3f}")
         atomic_savefig(fig, out / "lf.png", force=args.force)
+        warn = [] if res.lf.converged else ["the LF fit did not converge cleanly"]
+        write_report(out / "report.md", f"Red-clump distance: {args.catalog}", force=args.force,
+                     inputs={"catalog": args.catalog, "band": args.band, "[Fe/H]": args.feh,
+                             "age [Gyr]": args.age, "age range": args.age_range, "E(B-V) given": args.ebv,
+                             "reddening from colour": args.color if args.reddening_from_color else None},
+                     results={k: v for k, v in d.items() if k != "lf_fit"},
+                     plots=["lf.png"], warnings=warn)
     if args.json:
         d.pop("lf_fit")
         print(dumps(d))

@@ -1,0 +1,1 @@
+"""Input files of ``hbmodel demo`` (an invented scenario; see scenario.toml)."""
