@@ -455,7 +455,10 @@ class MassLossFit:
         for _ in range(2):  # a restart shakes Nelder-Mead out of a collapsed simplex
             simplex = [x] + [x + np.eye(len(x))[i] * steps[i] * np.where(x[i] + steps[i] > self._bnds[n][1], -1, 1)
                              for i, n in enumerate(names)]
-            r = minimize(lambda t: -float(f(t)[0]) if np.isfinite(f(t)[0]) else 1e300, x, method="Nelder-Mead",
+            def obj(t):
+                v = float(f(t)[0])
+                return -v if np.isfinite(v) else 1e300
+            r = minimize(obj, x, method="Nelder-Mead",
                          options=dict(initial_simplex=np.array(simplex), maxiter=400 * len(x), xatol=1e-5, fatol=2e-3,
                                       adaptive=True))
             if best is not None and best.fun - r.fun < 0.05:

@@ -1,0 +1,45 @@
+"""``hbmodel batch``: many fits or distances in parallel (joblib, or a Dask cluster)."""
+from __future__ import annotations
+
+NAME = "batch"
+HELP = "run fit or distance jobs from a table in parallel (joblib or a Dask cluster), resumably"
+DESCRIPTION = """Run one job per row of a JOBS table (CSV/ECSV).
+
+Columns: name, catalog, and the options of the task: for --task fit: bands, feh, alpha_fe, age,
+distance_modulus, dm_sd, ebv, ebv_sd[, model]; for --task distance: band, feh, age (or age_min, age_max),
+ebv[, ebv_sd, eta].  Each job's result is written atomically to DIR/<name>/result.json when it finishes;
+a re-run skips finished jobs; a failing job is reported and does not stop the others.  DIR/summary.ecsv,
+summary.csv and summary.png are written at the end.
+
+examples:
+  hbmodel batch fields.csv --task distance --out fields_out --jobs 2
+  hbmodel batch clusters.csv --task fit --out fits_out --scheduler tcp://127.0.0.1:8786
+"""
+
+
+def add_arguments(p):
+    p.add_argument("jobs_table", metavar="JOBS", help="jobs table (CSV or ECSV)")
+    p.add_argument("--out", required=True, help="output directory")
+    p.add_argument("--task", choices=("fit", "distance"), default="fit")
+    p.add_argument("--jobs", type=int, default=1, help="parallel workers (joblib)")
+    p.add_argument("--scheduler", default=None, help="Dask scheduler address, e.g. tcp://host:8786")
+    p.add_argument("--force", action="store_true", help="re-run finished jobs")
+
+
+def run(args):
+    import numpy as np
+
+    from ..batch import read_jobs, run_batch
+    from ..tasks import TASKS
+    if args.jobs < 1:
+        raise ValueError("--jobs must be at least 1")
+    jobs = read_jobs(args.jobs_table)
+    summary = run_batch(jobs, TASKS[args.task], args.out, n_jobs=args.jobs, scheduler=args.scheduler,
+                        force=args.force)
+    status = np.asarray(summary["status"]).astype(str)
+    n_fail = int(np.sum(status == "failed"))
+    print(f"{len(summary)} jobs: {len(summary) - n_fail} done, {n_fail} failed; summary in {args.out}/summary.ecsv")
+    for row in summary:
+        if str(row["status"]) == "failed":
+            print(f"  {row['name']}: {row['reason']}")
+    return 0 if n_fail == 0 else 1
