@@ -173,17 +173,17 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
         completeness = Completeness(obs.completeness_m50, obs.completeness_width)
     observed, errors, detected = observe_magnitudes(true, rng, error_laws=laws, completeness=completeness,
                                                     completeness_band=cband if completeness else None)
-    t = Table()
-    for k, v in cols.items():
-        t[k] = v
-    for b in bands:
-        t[b] = observed[b]
-        t[f"{b}_err"] = errors[b]
-        t[f"{b}_true"] = true[b]
-    t = t[np.asarray(detected, bool)]
+    keep = np.asarray(detected, bool)
     if obs.window is not None:
         wband, bright, faint = obs.window
-        t = t[(t[wband] >= bright) & (t[wband] <= faint)]
+        keep &= (observed[wband] >= bright) & (observed[wband] <= faint)
+    t = Table()
+    for k, v in cols.items():
+        t[k] = v[keep]
+    for b in bands:
+        t[b] = observed[b][keep]
+        t[f"{b}_err"] = errors[b][keep]
+        t[f"{b}_true"] = true[b][keep]
     t.meta["hbmodel_mock"] = {"n_hb_drawn": int(n_hb), "distance_modulus": obs.distance_modulus,
                               "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands)}
     return t

@@ -345,15 +345,30 @@ class Population:
             m = np.minimum(q, sub.tip_mass_msun)
             return m, m <= sub.core_mass_msun + 1e-4
         if ml.kind == "eta":
-            dm, lost = mass_loss_from_eta(q, sub.tip_mass_msun, sub.core_mass_msun, sub.mh,
-                                          helium_excess=sub.helium_excess, x_env=sub.composition.x,
-                                          law=ml.law)
+            etas, dms, first_lost = self._eta_map(sub, float(np.max(q)) if q.size else 1.0)
+            dm = np.interp(q, etas, dms)
+            lost = q >= first_lost
         else:
             dm = q
             lost = dm >= sub.tip_mass_msun - sub.core_mass_msun
         m = sub.tip_mass_msun - dm
         lost = lost | (m <= sub.core_mass_msun)
         return np.where(lost, sub.core_mass_msun, m), lost
+
+    def _eta_map(self, sub: SubPopulation, eta_max: float):
+        """eta -> integrated loss on a dense grid, integrated once per sub-population (cached on the instance)."""
+        cache = self.__dict__.setdefault("_eta_cache", {})
+        key = (id(sub), self.mass_loss.law)
+        hit = cache.get(key)
+        if hit is None or hit[0][-1] < eta_max:
+            top = max(eta_max * 1.0001, 1.0, 0.0 if hit is None else hit[0][-1] * 2)
+            etas = np.linspace(0.0, top, 481)
+            dm, lost = mass_loss_from_eta(etas, sub.tip_mass_msun, sub.core_mass_msun, sub.mh,
+                                          helium_excess=sub.helium_excess, x_env=sub.composition.x,
+                                          law=self.mass_loss.law)
+            first_lost = etas[np.argmax(lost)] if lost.any() else np.inf
+            hit = cache[key] = (etas, dm, first_lost)
+        return hit
 
     def mean_eta(self, sub: SubPopulation | None = None):
         """Mean Reimers-type efficiency equivalent to the mean integrated mass loss."""
@@ -523,6 +538,13 @@ class Population:
         return self._mk(ph, i, sub, m, logl, logt, np.ones(m.size), t0, ph_t)
 
     def _tmax(self, sub, ph):
+        cache = self.__dict__.setdefault("_tmax_cache", {})
+        key = (id(sub), ph)
+        if key not in cache:
+            cache[key] = self._tmax_compute(sub, ph)
+        return cache[key]
+
+    def _tmax_compute(self, sub, ph):
         u = (np.arange(256) + 0.5) / 256
         res, _ = self._hb_set(0, sub, u, None, np.ones(256))
         m, mc, z, t_hb, t_agb, _ = res

@@ -24,7 +24,7 @@ def main():
     f = MassLossFit(Population(-1.6, 12.5, alpha_fe=0.3), pri, compare_models=False).fit(cat)
     t_fit = time.perf_counter() - t0
     L = f.likelihood_
-    p = {k: np.array([v]) for k, v in f._map_p().items()}
+    p = {k: np.atleast_1d(v)[:1] for k, v in f._map_p().items()}
     with threadpool_limits(1, "blas"):
         for _ in range(5):
             L(p)
