@@ -12,7 +12,7 @@ Method
   columns; optional completeness).
 * Nuisance shifts: distance modulus ``DM``, reddening ``E = E(B-V)`` and zero-point offsets ``dc`` (colour) and
   ``dm`` (magnitude) act on the data only through the 2-D shift ``s_c = k E + dc``, ``s_m = DM + R_1 E + dm``
-  (``R_1 = A_1/E``, ``k = R_1 - R_2`` from :func:`hbmodel.extinction.extinction_ratio` at the HB's median
+  (``R_1 = A_1/E``, ``k = R_1 - R_2`` from :func:`hbmodel.extinction.extinction_ratio` at a fixed 5,000 K
   Teff).  With Gaussian priors the shift therefore has a bivariate Gaussian prior; the sampler explores
   ``(s_c, s_m)`` and ``DM, E, dc, dm`` are drawn afterwards from their exact Gaussian conditional given the
   shift (E >= 0 enforced by rejection in that step only).  The prior widths of ``dc``/``dm`` stand for the

@@ -25,6 +25,22 @@ def population(s):
     return Population(s["feh"], s["age"], alpha_fe=s["alpha_fe"], mass_loss=ml)
 
 
+def _masses(s):
+    """Invented asteroseismic masses: RGB giants at the tip mass, clump giants at their HB masses."""
+    from astropy.table import Table
+    pop = population(s)
+    rng = np.random.default_rng(s["seed"] + 1)
+    stars = pop.sample(400, rng)
+    rgb = stars.mass_msun[(stars.phase == "rgb") & (stars.logl > 1.0)][: s["n_rgb_masses"]]
+    cl = stars.mass_msun[stars.phase == "hb"][: s["n_clump_masses"]]
+    m = np.concatenate([rgb, cl])
+    err = s["mass_err_frac"] * m
+    obs = m + err * rng.standard_normal(m.size)
+    phase = np.array(["rgb"] * rgb.size + ["clump"] * cl.size)
+    return Table({"mass": np.round(obs, 4), "mass_err": np.round(err, 4), "phase": phase},
+                 meta={"note": "invented asteroseismic masses for the hbmodel demo"})
+
+
 def main():
     scen = tomllib.loads((HERE / "scenario.toml").read_text())
     for key, s in scen.items():
@@ -39,6 +55,9 @@ def main():
         t.meta = {"object": key, "note": "invented observations for the hbmodel demo"}
         write_table(t, HERE / s["catalog"], force=True)
         print(f"{key}: {len(t)} stars -> {s['catalog']}")
+        if "masses" in s:
+            write_table(_masses(s), HERE / s["masses"], force=True)
+            print(f"{key}: masses -> {s['masses']}")
     return 0
 
 
