@@ -32,6 +32,14 @@ from typing import Any
 import numpy as np
 from scipy import ndimage, optimize, special
 
+try:  # a dependency of scikit-learn, hence always present with hbmodel's requirements
+    from threadpoolctl import threadpool_limits
+except ImportError:  # pragma: no cover
+    import contextlib
+
+    def threadpool_limits(**_kw):
+        return contextlib.nullcontext()
+
 from ._tables import read_table
 
 __all__ = ["ClumpLFResult", "fit_clump_lf", "plot_clump_lf"]
@@ -425,8 +433,19 @@ def fit_clump_lf(mag, *, mag_range=None, components=("clump", "rgb", "bump"), n_
     The method and its validity range are described in the module docstring.  Raises ``ValueError``
     for NaNs, too few stars in the window or when no significant clump is found.
     """
+    # L-BFGS-B makes many tiny BLAS calls; multithreaded BLAS only spins on them (10-100x slower on a
+    # loaded machine), so the fit runs with one BLAS thread (restored on exit).
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _fit_clump_lf(mag, mag_range=mag_range, components=components, n_boot=n_boot, rng=rng,
+                             peak_guess=peak_guess, background=background)
+
+
+def _fit_clump_lf(mag, *, mag_range, components, n_boot, rng, peak_guess, background) -> ClumpLFResult:
     pr = _priors()
-    m_all = np.asarray(mag, dtype=float).ravel() if not isinstance(mag, str) else None
+    try:
+        m_all = None if isinstance(mag, str) else np.asarray(mag, dtype=float).ravel()
+    except (TypeError, ValueError):
+        m_all = None
     if m_all is None or m_all.size == 0:
         raise ValueError("mag must be a non-empty numeric array of magnitudes")
     if not np.all(np.isfinite(m_all)):

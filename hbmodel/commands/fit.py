@@ -1,6 +1,8 @@
 """``hbmodel fit``: infer the RGB mass loss and its dispersion from an observed HB / red clump."""
 from __future__ import annotations
 
+import json
+
 import math
 
 NAME = "fit"
@@ -129,6 +131,21 @@ def run(args):
         for name, fig in figs.items():
             atomic_savefig(fig, out_dir / name, force=args.force, dpi=90)
             plt.close(fig)
+        from ..reports import run_record, write_report
+        atomic_write_json(out_dir / "config.json", run_record("fit", args), force=args.force)
+        conv = res["convergence"]
+        warn = [] if conv["converged"] else ["the chain did not converge (length < 50 autocorrelation times)"]
+        write_report(out_dir / "report.md", f"Mass-loss fit: {args.catalog or args.masses}", force=args.force,
+                     inputs={"catalog": args.catalog, "masses": args.masses, "bands": args.bands,
+                             "[Fe/H]": args.feh, "[alpha/Fe]": args.alpha_fe, "age [Gyr]": args.age,
+                             "helium": args.helium, "model": est.model, "stars in region": est.n_stars_},
+                     priors={"distance modulus": pri.distance_modulus, "E(B-V)": pri.ebv,
+                             "age sd [Gyr]": pri.age_sd_gyr, "mass-loss spread": pri.mass_loss_sd,
+                             "field fraction": pri.field_fraction},
+                     results={k: v for k, v in res.items() if isinstance(v, dict) and "median" in v},
+                     convergence=conv, plots=list(figs), warnings=warn,
+                     notes=("Model comparison: " + json.dumps(res.get("model_comparison"), default=str))
+                     if res.get("model_comparison") else None)
     if args.json:
         print(dumps(res))
         return 0
