@@ -12,7 +12,7 @@ from importlib import resources
 
 import numpy as np
 
-__all__ = ["read_table", "table_header"]
+__all__ = ["read_table", "table_header", "pchip_rows"]
 
 
 def _text(name: str) -> str:
@@ -41,3 +41,21 @@ def table_header(name: str) -> str:
     """The provenance header (comment lines) of a calibration table."""
     return "\n".join(ln.lstrip("# ").rstrip() for ln in _text(name).splitlines()
                      if ln.lstrip().startswith("#"))
+
+
+@functools.lru_cache(maxsize=None)
+def pchip_rows(name: str, xcol: str, ycol: str, log_x: bool = True, log_y: bool = False):
+    """Per-[M/H] monotone (PCHIP) interpolants of ``ycol`` against ``xcol`` in a long-format table.
+
+    Returns ``(mh_values, interpolants, x_min, x_max)``; each row must share the same x grid."""
+    from scipy.interpolate import PchipInterpolator
+    t = read_table(name)
+    mhs = np.unique(t["mh"])
+    rows = []
+    for m in mhs:
+        sel = t["mh"] == m
+        x = np.log10(t[xcol][sel]) if log_x else t[xcol][sel]
+        y = np.log10(t[ycol][sel]) if log_y else t[ycol][sel]
+        rows.append(PchipInterpolator(x, y, extrapolate=False))
+    xs = t[xcol][t["mh"] == mhs[0]]
+    return mhs, tuple(rows), float(xs.min()), float(xs.max())

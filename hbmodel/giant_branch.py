@@ -21,9 +21,8 @@ from __future__ import annotations
 import functools
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
 
-from ._tables import read_table
+from ._tables import pchip_rows, read_table
 from ._validate import as_float_array, check_range
 
 __all__ = [
@@ -67,17 +66,8 @@ def mh_interp(table: str, column: str, mh):
     return out
 
 
-@functools.lru_cache(maxsize=None)
 def _tip_age_rows():
-    t = read_table("tip_age.csv")
-    mhs = np.unique(t["mh"])
-    rows = []
-    for m in mhs:
-        sel = t["mh"] == m
-        rows.append(PchipInterpolator(np.log10(t["mass_msun"][sel]), np.log10(t["age_tip_gyr"][sel]),
-                                      extrapolate=False))
-    masses = t["mass_msun"][t["mh"] == mhs[0]]
-    return mhs, rows, float(masses.min()), float(masses.max())
+    return pchip_rows("tip_age.csv", "mass_msun", "age_tip_gyr", True, True)
 
 
 def _y_std(mh):

@@ -25,7 +25,7 @@ from . import giant_branch as gb
 from . import hb_evolution as hbe
 from .composition import Composition
 from .ignition import ignition_core_mass_msun
-from .mass_loss import LAWS, mass_loss_from_eta, eta_from_mass_loss
+from .mass_loss import ETA_RANGE, LAWS, eta_from_mass_loss, mass_loss_from_eta
 from .pulsation import MODE_NONE, period_days, pulsation_mode
 from .zahb import MENV_MIN_MSUN, zahb_state
 
@@ -361,7 +361,7 @@ class Population:
         key = (id(sub), self.mass_loss.law)
         hit = cache.get(key)
         if hit is None or hit[0][-1] < eta_max:
-            top = max(eta_max * 1.0001, 1.0, 0.0 if hit is None else hit[0][-1] * 2)
+            top = min(max(eta_max * 1.0001, 1.0, 0.0 if hit is None else hit[0][-1] * 2), ETA_RANGE[1])
             etas = np.linspace(0.0, top, 481)
             dm, lost = mass_loss_from_eta(etas, sub.tip_mass_msun, sub.core_mass_msun, sub.mh,
                                           helium_excess=sub.helium_excess, x_env=sub.composition.x,

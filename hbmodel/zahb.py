@@ -22,9 +22,8 @@ import functools
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
 
-from ._tables import read_table
+from ._tables import pchip_rows, read_table
 from ._validate import as_float_array, check_range
 from .giant_branch import MH_RANGE, log_g, radius_rsun
 
@@ -39,16 +38,8 @@ def _lum() -> dict:
     return {k: float(v[0]) for k, v in read_table("zahb_luminosity.csv").items()}
 
 
-@functools.lru_cache(maxsize=None)
 def _teff_rows():
-    t = read_table("zahb_teff.csv")
-    mhs = np.unique(t["mh"])
-    rows = []
-    for m in mhs:
-        sel = t["mh"] == m
-        rows.append(PchipInterpolator(np.log10(t["menv_msun"][sel]), t["log_teff"][sel], extrapolate=False))
-    sel = t["mh"] == mhs[0]
-    return mhs, rows, float(t["menv_msun"][sel].min()), float(t["menv_msun"][sel].max())
+    return pchip_rows("zahb_teff.csv", "menv_msun", "log_teff", True, False)
 
 
 @dataclass(frozen=True)

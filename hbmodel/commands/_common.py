@@ -85,3 +85,21 @@ def to_jsonable(obj):
 
 def dumps(obj) -> str:
     return json.dumps(to_jsonable(obj), indent=2, sort_keys=True, allow_nan=False)
+
+
+def parse_mapping(text, what, *, numeric=False):
+    """'A=x,B=y' -> {'A': 'x', 'B': 'y'} (values as floats with ``numeric``); empty text -> {}."""
+    out = {}
+    if not text:
+        return out
+    for item in text.split(","):
+        if "=" not in item:
+            raise ValueError(f"{what}: expected NAME=VALUE pairs, got {item!r}")
+        k, v = (x.strip() for x in item.split("=", 1))
+        if numeric:
+            try:
+                v = float(v)
+            except ValueError:
+                raise ValueError(f"{what}: {v!r} is not a number") from None
+        out[k] = v
+    return out

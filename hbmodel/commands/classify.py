@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ._common import parse_mapping
+
 NAME = "classify"
 HELP = "per-star probability that a giant is a clump/HB star rather than an RGB star"
 DESCRIPTION = """Classify giants from (Teff, log g[, mass]) with the population model as the likelihood.
@@ -46,11 +48,7 @@ def run(args):
     from ..classify import CHeBClassifier
     from ..io import read_catalog, write_table
     from .distance import _population
-    mapping = {}
-    if args.columns:
-        for item in args.columns.split(","):
-            k, _, v = item.partition("=")
-            mapping[k.strip()] = v.strip()
+    mapping = parse_mapping(args.columns, "--columns")
     req = ["teff", "logg"] + (["mass"] if args.use_mass else [])
     t = read_catalog(args.catalog, columns=mapping or None, required=req)
     if len(t) == 0:

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._common import dumps
+from ._common import dumps, parse_mapping
 
 NAME = "distance"
 HELP = "red-clump distance of a field or cluster, with the population correction"
@@ -77,7 +77,6 @@ def population_sd(args, band, smear=0.05):
 def run(args):
     from ..clump_distance import measure_distance
     from ..io import atomic_savefig, atomic_write_json, prepare_out_dir, read_catalog
-    from .mock import _band_map  # noqa: F401  (shared parser helpers live there)
     from ..photometry import get_band
     get_band(args.band)
     colour = None
@@ -92,11 +91,7 @@ def run(args):
         raise ValueError("--reddening-from-color needs --color")
     if args.ebv is not None and args.ebv < 0:
         raise ValueError("E(B-V) must be non-negative")
-    mapping = {}
-    if args.columns:
-        for item in args.columns.split(","):
-            k, _, v = item.partition("=")
-            mapping[k.strip()] = v.strip()
+    mapping = parse_mapping(args.columns, "--columns")
     needed = [args.band] + (list(colour) if colour and args.reddening_from_color else [])
     t = read_catalog(args.catalog, columns=mapping or None, required=sorted(set(needed)))
     if len(t) == 0:

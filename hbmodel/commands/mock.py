@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._common import add_population_arguments, population_from_args
+from ._common import add_population_arguments, parse_mapping, population_from_args
 
 NAME = "mock"
 HELP = "generate a realistic mock catalogue (RGB, HB, early AGB, field) of a population"
@@ -19,18 +19,7 @@ with --chunk-size writes Parquet partitions (survey-size mocks).
 
 
 def _band_map(text, what):
-    out = {}
-    if not text:
-        return out
-    for item in text.split(","):
-        if "=" not in item:
-            raise ValueError(f"{what}: expected BAND=VALUE pairs, got {item!r}")
-        k, v = item.split("=", 1)
-        try:
-            out[k.strip()] = float(v)
-        except ValueError:
-            raise ValueError(f"{what}: {v!r} is not a number") from None
-    return out
+    return parse_mapping(text, what, numeric=True)
 
 
 def add_arguments(p):
@@ -59,6 +48,7 @@ def add_arguments(p):
     p.add_argument("--plot", default=None, help="write a CMD plot (PNG)")
     p.add_argument("--chunk-size", type=int, default=None, help="stars per Parquet partition (survey-size mocks)")
     p.add_argument("--jobs", type=int, default=1, help="parallel workers for chunked mocks")
+    p.add_argument("--scheduler", default=None, help="Dask scheduler address for chunked mocks")
 
 
 def run(args):
@@ -102,11 +92,13 @@ def run(args):
                           completeness_band=bands[0], binary_fraction=args.binary_fraction,
                           n_field=args.field_n, field_box=box, field_table=field_table, window=window)
     pop = population_from_args(args)
+    if args.scheduler and not args.chunk_size:
+        raise ValueError("--scheduler is used for chunked mocks: give --chunk-size too")
     if args.chunk_size:
         from ..mock import write_chunked_mock
         parts = write_chunked_mock(pop, bands=bands, n_hb=args.n_hb, total_mass_msun=args.total_mass, obs=obs,
                                    seed=args.seed, out_dir=args.out, chunk_size=args.chunk_size,
-                                   n_jobs=args.jobs, force=args.force)
+                                   n_jobs=args.jobs, scheduler=args.scheduler, force=args.force)
         print(f"wrote {len(parts)} Parquet partitions to {args.out}")
         return 0
     rng = np.random.default_rng(args.seed)
