@@ -129,7 +129,7 @@ def mass_loss_from_eta(eta, m_init_msun, mc_ign_msun, mh, *, helium_excess=0.0, 
     """
     eta = check_range(eta, "mass-loss efficiency eta", *ETA_RANGE)
     etas, dm, lost = _eta_grid(float(m_init_msun), float(mc_ign_msun), mh, helium_excess, x_env, law,
-                               max(float(np.max(eta)) if eta.size else 1.0, 0.1) * 1.0001)
+                               min(max(float(np.max(eta)) if eta.size else 1.0, 0.1) * 1.0001, ETA_RANGE[1]))
     out = np.interp(eta, etas, dm)
     first_lost = etas[np.argmax(lost)] if lost.any() else np.inf
     return out, eta >= first_lost
