@@ -23,7 +23,7 @@ import numpy as np
 
 from ._tables import read_table
 from ._validate import check_range
-from .giant_branch import (L_SUN_ERG_S, LOG_G_SUN, M_SUN_G, YEAR_S, constants as gb_constants,
+from .giant_branch import (L_SUN_ERG_S, M_SUN_G, YEAR_S, constants as gb_constants,
                            radius_rsun, rgb_core_from_logl, rgb_logl_from_core, rgb_logteff)
 
 __all__ = ["LAWS", "integrate_rgb_mass_loss", "mass_loss_from_eta", "eta_from_mass_loss", "ETA_RANGE"]

@@ -17,7 +17,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._tables import read_table
 from .imf import imf_number_density
 from .population import Population, StarSet
 
@@ -60,7 +59,6 @@ class ObservationSpec:
 
 def expected_hb_count(population: Population, total_mass_msun: float) -> float:
     """Expected number of HB stars in a population of initial mass ``total_mass_msun`` (Kroupa IMF)."""
-    from . import giant_branch as gb
     if not (np.isfinite(total_mass_msun) and total_mass_msun > 0):
         raise ValueError("total mass must be positive")
     times = population.phase_times()

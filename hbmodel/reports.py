@@ -2,12 +2,11 @@
 and the run record (configuration + hbmodel version) every result folder carries."""
 from __future__ import annotations
 
-import datetime as _dt
 import platform
 
 from . import __version__
 
-__all__ = ["run_record", "markdown_report", "write_report"]
+__all__ = ["run_record", "markdown_report", "write_report", "save_fit_products"]
 
 
 def run_record(command: str, args) -> dict:
@@ -52,3 +51,39 @@ def markdown_report(title: str, *, inputs: dict, results: dict, priors: dict | N
 def write_report(path, title, *, force=False, **kwargs):
     from .io import atomic_write_text
     return atomic_write_text(path, markdown_report(title, **kwargs), force=force)
+
+
+def save_fit_products(est, out_dir, *, title, inputs, force=False, config=None):
+    """Write a fitted :class:`hbmodel.fit.MassLossFit`'s result.json, posterior.ecsv, plots, report.md
+    (and ``config.json`` when ``config`` is given) into ``out_dir``."""
+    import json
+
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from .io import atomic_savefig, atomic_write_json, write_table
+    res = est.result()
+    atomic_write_json(out_dir / "result.json", res, force=force)
+    write_table(est.posterior_table(), out_dir / "posterior.ecsv", force=force)
+    figs = {"corner.png": est.plot_corner(), "hb_mass.png": est.plot_hb_mass()}
+    if getattr(est, "_has_cmd", False):
+        figs["hess.png"] = est.plot_hess()
+        figs["cmd.png"] = est.plot_cmd()
+    for name, fig in figs.items():
+        atomic_savefig(fig, out_dir / name, force=force, dpi=90)
+        plt.close(fig)
+    if config is not None:
+        atomic_write_json(out_dir / "config.json", config, force=force)
+    pri = est.priors
+    conv = res["convergence"]
+    warn = [] if conv["converged"] else ["the chain did not converge (length < 50 autocorrelation times)"]
+    write_report(out_dir / "report.md", title, force=force, inputs=inputs,
+                 priors=None if pri is None else {
+                     "distance modulus": pri.distance_modulus, "E(B-V)": pri.ebv, "age sd [Gyr]": pri.age_sd_gyr,
+                     "mass-loss spread": pri.mass_loss_sd, "field fraction": pri.field_fraction},
+                 results={k: v for k, v in res.items() if isinstance(v, dict) and "median" in v},
+                 convergence=conv, plots=list(figs), warnings=warn,
+                 notes=("Model comparison: " + json.dumps(res.get("model_comparison"), default=str))
+                 if res.get("model_comparison") else None)
+    return res

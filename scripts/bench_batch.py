@@ -21,7 +21,7 @@ import time
 
 import numpy as np
 
-from hbmodel.batch import run_batch, run_chunked
+from hbmodel.batch import run_batch
 
 
 def peak_fit_task(job: dict, job_dir: pathlib.Path) -> dict:

@@ -63,13 +63,13 @@ def _fit_cluster(key, s, out, quick, force, lines):
         est.fit(masses=_catalog(s["masses"]))
     else:
         est.fit(cat)
-    summ = est.summary()
+    from ..reports import save_fit_products
     d = out / key
     d.mkdir(exist_ok=True)
-    atomic_write_json(d / "result.json", summ, force=force)
+    summ = save_fit_products(est, d, title=f"{s['title'].split(':')[0]} mass-loss fit (demo)", force=True,
+                             inputs={"catalog": s.get("masses") or s["catalog"], "[Fe/H]": s["feh"],
+                                     "[alpha/Fe]": s["alpha_fe"], "age [Gyr]": s["age"], "model": est.model})
     atomic_write_json(d / "truth.json", truth, force=force)
-    if hasattr(est, "write_outputs"):
-        est.write_outputs(d, force=True)
     ml = summ["mass_loss"]
     ok = ml["lo"] - 0.01 <= truth["mass_loss"] <= ml["hi"] + 0.01
     lines.append(f"  {s['title'].split(':')[0]:<12} mass loss {ml['median']:.3f} "

@@ -1,8 +1,6 @@
 """``hbmodel fit``: infer the RGB mass loss and its dispersion from an observed HB / red clump."""
 from __future__ import annotations
 
-import json
-
 import math
 
 NAME = "fit"
@@ -72,9 +70,8 @@ def _columns(text):
 
 
 def run(args):
-    import numpy as np
     from ..fit import MassLossFit, Priors
-    from ..io import atomic_savefig, atomic_write_json, prepare_out_dir, read_catalog, write_table
+    from ..io import prepare_out_dir, read_catalog
     from ..photometry import get_band
     from ..population import Population
     from ._common import dumps
@@ -118,34 +115,13 @@ def run(args):
     est.fit(cat, masses)
     res = est.result()
     if args.out:
+        from ..reports import run_record, save_fit_products
         out_dir = prepare_out_dir(args.out, force=args.force)
-        atomic_write_json(out_dir / "result.json", res, force=args.force)
-        write_table(est.posterior_table(), out_dir / "posterior.ecsv", force=args.force)
-        import matplotlib
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
-        figs = {"corner.png": est.plot_corner(), "hb_mass.png": est.plot_hb_mass()}
-        if cat is not None:
-            figs["hess.png"] = est.plot_hess()
-            figs["cmd.png"] = est.plot_cmd()
-        for name, fig in figs.items():
-            atomic_savefig(fig, out_dir / name, force=args.force, dpi=90)
-            plt.close(fig)
-        from ..reports import run_record, write_report
-        atomic_write_json(out_dir / "config.json", run_record("fit", args), force=args.force)
-        conv = res["convergence"]
-        warn = [] if conv["converged"] else ["the chain did not converge (length < 50 autocorrelation times)"]
-        write_report(out_dir / "report.md", f"Mass-loss fit: {args.catalog or args.masses}", force=args.force,
-                     inputs={"catalog": args.catalog, "masses": args.masses, "bands": args.bands,
-                             "[Fe/H]": args.feh, "[alpha/Fe]": args.alpha_fe, "age [Gyr]": args.age,
-                             "helium": args.helium, "model": est.model, "stars in region": est.n_stars_},
-                     priors={"distance modulus": pri.distance_modulus, "E(B-V)": pri.ebv,
-                             "age sd [Gyr]": pri.age_sd_gyr, "mass-loss spread": pri.mass_loss_sd,
-                             "field fraction": pri.field_fraction},
-                     results={k: v for k, v in res.items() if isinstance(v, dict) and "median" in v},
-                     convergence=conv, plots=list(figs), warnings=warn,
-                     notes=("Model comparison: " + json.dumps(res.get("model_comparison"), default=str))
-                     if res.get("model_comparison") else None)
+        save_fit_products(est, out_dir, title=f"Mass-loss fit: {args.catalog or args.masses}", force=args.force,
+                          config=run_record("fit", args),
+                          inputs={"catalog": args.catalog, "masses": args.masses, "bands": args.bands,
+                                  "[Fe/H]": args.feh, "[alpha/Fe]": args.alpha_fe, "age [Gyr]": args.age,
+                                  "helium": args.helium, "model": est.model, "stars in region": est.n_stars_})
     if args.json:
         print(dumps(res))
         return 0

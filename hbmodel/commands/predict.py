@@ -35,7 +35,7 @@ def _fmt(v, spec=".3f"):
 
 def _grid(args):
     from ..grids import clump_grid, hb_type_grid, parse_range
-    from ..io import atomic_savefig, atomic_write_text, prepare_out_dir, write_table
+    from ..io import atomic_savefig, prepare_out_dir, write_table
     from ..plots import plot_clump_grid, plot_hb_type_grid
     if not args.out:
         raise ValueError("a grid needs --out DIR")
