@@ -35,7 +35,7 @@ class CHeBClassifier:
     """
 
     def __init__(self, population: Population, *, teff_err_k=80.0, logg_err=0.1, mass_err_msun=0.1,
-                 use_mass=False, n_grid=(90, 90, 50)):
+                 use_mass=False, n_grid=(100, 130, 50)):
         for v, name in ((teff_err_k, "teff error"), (logg_err, "logg error"), (mass_err_msun, "mass error")):
             if not (np.isfinite(v) and v > 0):
                 raise ValueError(f"{name} must be positive")
@@ -49,8 +49,8 @@ class CHeBClassifier:
         st = self.population.model_stars(n_mass=160, n_tau=120, n_agb=60, n_rgb=3000)
         teff, logg, mass, w = st.teff_k, st.logg, st.mass_msun, st.weight
         cheb = st.phase == "hb"
-        lo_t, hi_t = 3500.0, 6500.0
-        lo_g, hi_g = 1.0, 3.8
+        lo_t, hi_t = 3000.0, 7000.0
+        lo_g, hi_g = -0.5, 3.8
         nt, ng, nm = self.n_grid
         edges = [np.linspace(lo_t, hi_t, nt + 1), np.linspace(lo_g, hi_g, ng + 1)]
         data = [teff, logg]

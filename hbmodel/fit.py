@@ -20,7 +20,8 @@ Method
 * Age enters through the tip mass: HB mass = M_tip(age) - dM.
 * Sampler: emcee (Foreman-Mackey et al. 2013, PASP 125, 306, affine-invariant ensemble; Goodman & Weare 2010),
   started around a scipy Nelder-Mead MAP; chains are extended until longer than 50 integrated
-  autocorrelation times (Sokal 1997 / emcee's estimator), else ``converged_`` is False.
+  autocorrelation times (Goodman & Weare 2010, CAMCoS 5, 65; emcee's integrated-time estimator), else
+  ``converged_`` is False.
   ``sampler="laplace"`` instead uses the Gaussian (Laplace) approximation at the MAP (finite-difference
   Hessian) -- fast, used for the simulation-based calibration.
 * Model comparison: BIC (Schwarz 1978, Ann. Stat. 6, 461) and AIC (Akaike 1974, IEEE TAC 19, 716) at the MAP

@@ -41,18 +41,34 @@ def strip_edges(logl, mass_msun):
     return _edge("fobe", logl, mass_msun), _edge("fre", logl, mass_msun)
 
 
+#: Domain of RR Lyrae stars for the strip edges and the period relation (log L, mass in Msun).
+LOGL_RANGE = (1.3, 2.3)
+MASS_RANGE_MSUN = (0.45, 0.9)
+
+
 def pulsation_mode(logteff, logl, mass_msun):
-    """0 outside the strip, 1 for fundamental (RRab), 2 for first overtone (RRc)."""
+    """0 outside the strip, 1 for fundamental (RRab), 2 for first overtone (RRc).
+
+    Only stars in the RR Lyrae domain (log L 1.3-2.3, 0.45-0.9 Msun) are flagged: more massive
+    core-helium burners crossing the strip are not RR Lyrae (anomalous/classical Cepheids), and are
+    returned as 0."""
     logteff = np.asarray(logteff, float)
+    logl_a = np.asarray(logl, float)
+    mass_a = np.asarray(mass_msun, float)
     blue, red = strip_edges(logl, mass_msun)
-    inside = (logteff <= blue) & (logteff >= red)
+    domain = ((logl_a >= LOGL_RANGE[0]) & (logl_a <= LOGL_RANGE[1])
+              & (mass_a >= MASS_RANGE_MSUN[0]) & (mass_a <= MASS_RANGE_MSUN[1]))
+    inside = (logteff <= blue) & (logteff >= red) & domain
     c = _c()
     mid = c["split_w"] * _edge("fbe", logl, mass_msun) + (1 - c["split_w"]) * _edge("fore", logl, mass_msun)
     return np.where(inside, np.where(logteff > mid, MODE_RRC, MODE_RRAB), MODE_NONE).astype(np.int8)
 
 
 def fundamentalised_period_days(logl, mass_msun, logteff):
-    """Fundamental-mode period from van Albada & Baker (1971)."""
+    """Fundamental-mode period from van Albada & Baker (1971); ValueError outside the RR Lyrae domain."""
+    from ._validate import check_range
+    check_range(logl, "RR Lyrae log L", *LOGL_RANGE)
+    check_range(mass_msun, "RR Lyrae mass (Msun)", *MASS_RANGE_MSUN)
     c = _c()
     logp = (c["vab_a"] + c["vab_l"] * np.asarray(logl, float) + c["vab_m"] * np.log10(np.asarray(mass_msun, float))
             + c["vab_t"] * np.asarray(logteff, float))
@@ -61,7 +77,13 @@ def fundamentalised_period_days(logl, mass_msun, logteff):
 
 def period_days(logl, mass_msun, logteff, mode):
     """Observed period for the assigned mode (NaN outside the strip)."""
-    pf = fundamentalised_period_days(logl, mass_msun, logteff)
     mode = np.asarray(mode)
+    if not np.any(mode != MODE_NONE):
+        return np.full(mode.shape, np.nan)
+    logl, mass_msun, logteff = np.broadcast_arrays(np.asarray(logl, float), np.asarray(mass_msun, float),
+                                                   np.asarray(logteff, float))
+    ok = mode != MODE_NONE
+    pf = np.full(mode.shape, np.nan)
+    pf[ok] = fundamentalised_period_days(logl[ok], mass_msun[ok], logteff[ok])
     p = np.where(mode == MODE_RRC, pf * 10.0 ** _c()["log_p1_p0"], pf)
     return np.where(mode == MODE_NONE, np.nan, p)

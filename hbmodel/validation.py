@@ -90,6 +90,18 @@ def _local_clump(band, solar):
     return pop.predict(bands=(band,))["clump_absmag"][band]
 
 
+def _eta_for_hb_type_zero(feh=-1.3, age=12.5):
+    """Reimers eta that puts the HB type of an old cluster at 0 (bisection on the deterministic prediction)."""
+    lo, hi = 0.2, 0.8
+    for _ in range(12):
+        mid = 0.5 * (lo + hi)
+        if _pred("hb_type", feh, age, mid, 0.06) < 0.0:
+            lo = mid
+        else:
+            hi = mid
+    return 0.5 * (lo + hi)
+
+
 def _pred(key, feh, age, eta, eta_sd, alpha=0.3, helium=None):
     return _pop(feh, age, eta, eta_sd, alpha, helium=helium).predict(bands=("V",))[key]
 
@@ -171,6 +183,9 @@ CHECKS = [
     Check("clump M_I population correction, 10 Gyr minus 2 Gyr, solar",
           lambda: _clump(0.0, 10.0, "I") - _clump(0.0, 2.0, "I"), 0.2, 0.15,
           "Girardi & Salaris 2001, MNRAS 323, 109: clump fainter in I with age past ~2 Gyr (from memory)", "photometry"),
+    Check("Reimers eta giving HB type 0 at [Fe/H]=-1.3 (old-halo locus), 12.5 Gyr", _eta_for_hb_type_zero, 0.477,
+          0.07, "McDonald & Zijlstra 2015, MNRAS 448, 502: eta = 0.477 +- 0.070 for globular clusters; the old-halo "
+          "HB-type locus crosses 0 near [Fe/H] = -1.3 (Lee, Demarque & Zinn 1994; from memory)", "population"),
     # --- populations (issue "Populations")
     Check("HB type, [Fe/H]=-2.2, 12.5 Gyr, eta 0.45", lambda: _pred("hb_type", -2.2, 12.5, 0.45, 0.03), 0.85, 0.15,
           "Galactic globular clusters: metal-poor old halo HBs are blue, HB type ~+0.7..+1 "
