@@ -272,7 +272,7 @@ def _check_inputs(teff_k, logg, feh):
         raise ValueError("teff_k, logg and feh must have broadcast-compatible shapes") from None
 
 
-def colours_v(teff_k, logg, feh) -> dict[str, np.ndarray]:
+def colours_v(teff_k, logg, feh, only=None) -> dict[str, np.ndarray]:
     """Colours ``V - X`` for every band X of the registry (``'V'`` is 0), plus ``'_bc_v'``.
 
     This is the shared engine of :func:`bolometric_correction`,
@@ -297,6 +297,10 @@ def colours_v(teff_k, logg, feh) -> dict[str, np.ndarray]:
         d_ub = -tg.get("wu", i, f) * (_uv_excess(feh) - _uv_excess(0.0))
         hot = teff > t_ref
         ifeh, ffeh = rg.locate(feh)
+    gaia = ("G", "BP", "RP")
+    if only is not None:  # compute just what is asked (Ks feeds BC_V, I feeds the Gaia bands)
+        need = set(only) | {"Ks"} | ({"I"} if set(only) & set(gaia) else set())
+        bands = [b for b in bands if b in need]
     out = {}
     for b in bands:
         vd = tg.get(f"0{b}", i, f)
@@ -319,9 +323,10 @@ def colours_v(teff_k, logg, feh) -> dict[str, np.ndarray]:
     out["V"] = np.zeros_like(teff)
     # BC_V = BC_V(Flower) - s [(V-Ks) - (V-Ks)_giant,solar]
     out["_bc_v"] = tg.get("bcp", i, f) - tg.get("s", i, f) * out["Ks"]
-    ig, fg = gg.locate(out["I"])
-    for b in ("G", "BP", "RP"):
-        out[b] = gg.get(b, ig, fg)
+    if "I" in out and (only is None or set(only) & set(gaia)):
+        ig, fg = gg.locate(out["I"])
+        for b in gaia:
+            out[b] = gg.get(b, ig, fg)
     return {k: v.reshape(shape) for k, v in out.items()}
 
 
@@ -377,7 +382,7 @@ def absolute_magnitudes(teff_k, logg, feh, logl_lsun, bands=BAND_NAMES) -> dict[
     """
     names = _bands_arg(bands)
     logl = as_float_array(logl_lsun, "logl_lsun")
-    v = colours_v(teff_k, logg, feh)
+    v = colours_v(teff_k, logg, feh, only=names)
     mv = M_BOL_SUN - 2.5 * logl - v["_bc_v"]
     return {b: mv - v[b] for b in names}
 

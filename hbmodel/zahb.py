@@ -77,7 +77,8 @@ def zahb_logl(mc_msun, menv_msun, mh, helium_excess=0.0):
                                                                   0.0, c["tilt_cap_dex"])
     l_h = (mh_interp("zahb_shell.csv", "h_l0", mh) * (mc / 0.49) ** c["h_mc_exp"]
            * menv / (menv + c["h_menv_half"]) * tilt * 10.0 ** (c["h_dy"] * dy))
-    l_im = c["im_l0"] * ((mc + menv) / 2.0) ** c["im_exp"]
+    m_tot = mc + menv
+    l_im = c["im_l0"] * (np.maximum(m_tot - c["im_m0"], 0.0) / (2.0 - c["im_m0"])) ** c["im_exp"]
     return np.log10(l_he + l_h + l_im)
 
 
