@@ -103,3 +103,14 @@ def parse_mapping(text, what, *, numeric=False):
                 raise ValueError(f"{what}: {v!r} is not a number") from None
         out[k] = v
     return out
+
+
+def parse_floats(text, n, what):
+    """'a,b,...' -> list of ``n`` finite floats, or a one-line ValueError naming the option."""
+    try:
+        vals = [float(v) for v in str(text).split(",")]
+    except ValueError:
+        raise ValueError(f"{what} must be {n} comma-separated numbers (got {text!r})") from None
+    if len(vals) != n or not all(math.isfinite(v) for v in vals):
+        raise ValueError(f"{what} must be {n} comma-separated finite numbers (got {text!r})")
+    return vals

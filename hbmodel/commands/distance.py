@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._common import dumps, parse_mapping
+from ._common import dumps, parse_floats, parse_mapping
 
 NAME = "distance"
 HELP = "red-clump distance of a field or cluster, with the population correction"
@@ -100,11 +100,8 @@ def run(args):
     err = np.asarray(t[f"{args.band}_err"], float) if f"{args.band}_err" in t.colnames else None
     region = None
     if args.region:
-        try:
-            region = tuple(float(x) for x in args.region.split(","))
-        except ValueError:
-            raise ValueError("--region must be MAG_BRIGHT,MAG_FAINT") from None
-        if len(region) != 2 or region[0] >= region[1]:
+        region = tuple(parse_floats(args.region, 2, "--region"))
+        if region[0] >= region[1]:
             raise ValueError("--region must be MAG_BRIGHT,MAG_FAINT with MAG_BRIGHT < MAG_FAINT")
     pop = _population(args.feh, args.alpha_fe, args.age, args.age_range, args.eta)
     out = prepare_out_dir(args.out, force=args.force) if args.out else None

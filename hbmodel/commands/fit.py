@@ -47,16 +47,6 @@ def add_arguments(p):
     p.add_argument("--json", action="store_true", help="print one JSON object")
 
 
-def _floats(text, n, what):
-    try:
-        vals = [float(v) for v in str(text).split(",")]
-    except ValueError:
-        raise ValueError(f"{what} must be {n} comma-separated numbers (got {text!r})") from None
-    if len(vals) != n or not all(math.isfinite(v) for v in vals):
-        raise ValueError(f"{what} must be {n} comma-separated finite numbers (got {text!r})")
-    return vals
-
-
 def _columns(text):
     if not text:
         return None
@@ -74,7 +64,7 @@ def run(args):
     from ..io import prepare_out_dir, read_catalog
     from ..photometry import get_band
     from ..population import Population
-    from ._common import dumps
+    from ._common import dumps, parse_floats
 
     bands = tuple(b.strip() for b in str(args.bands).split(","))
     if len(bands) != 2 or not all(bands):
@@ -91,7 +81,7 @@ def run(args):
             raise ValueError(f"--{name.replace('_', '-')} must be positive: a prior of zero width (got {v:g})")
     if args.max_steps < 100:
         raise ValueError("--max-steps must be at least 100")
-    region = _floats(args.region, 4, "--region") if args.region else None
+    region = parse_floats(args.region, 4, "--region") if args.region else None
     # read everything before touching the output directory
     cat = None
     if args.catalog is not None:

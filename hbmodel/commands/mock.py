@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._common import add_population_arguments, parse_mapping, population_from_args
+from ._common import add_population_arguments, parse_floats, parse_mapping, population_from_args
 
 NAME = "mock"
 HELP = "generate a realistic mock catalogue (RGB, HB, early AGB, field) of a population"
@@ -69,12 +69,7 @@ def run(args):
         raise ValueError("--total-mass must be positive")
     box = None
     if args.field_box:
-        try:
-            box = tuple(float(x) for x in args.field_box.split(","))
-        except ValueError:
-            raise ValueError("--field-box must be four numbers CMIN,CMAX,MBRIGHT,MFAINT") from None
-        if len(box) != 4:
-            raise ValueError("--field-box must be four numbers CMIN,CMAX,MBRIGHT,MFAINT")
+        box = tuple(parse_floats(args.field_box, 4, "--field-box (CMIN,CMAX,MBRIGHT,MFAINT)"))
     window = None
     if args.window:
         parts = args.window.split(":")
