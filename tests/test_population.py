@@ -128,3 +128,12 @@ def test_mock_never_overwrites(tmp_path):
     bad = tmp_path / "nodir" / "m.ecsv"
     proc = subprocess.run([sys.executable, "-m", "hbmodel", *args[:-1], str(bad)], capture_output=True, text=True)
     assert proc.returncode == 2 and len(proc.stderr.strip().splitlines()) == 1
+
+
+def test_helium_rich_old_metal_poor_population_is_supported():
+    # multiple populations of old metal-poor globular clusters reach dY ~ +0.15 (e.g. Piotto et al. 2007,
+    # ApJ 661, L53; from memory): the surrogate must cover their low turn-off masses (~0.1-0.15 Msun lower)
+    p = pop(feh=-2.2, helium_enriched_fraction=0.3, helium_delta_y=0.15)
+    m_std, m_he = (s.tip_mass_msun for s in p.subpopulations)
+    assert 0.08 < m_std - m_he < 0.2
+    assert p.predict(bands=("V",))["fraction_blue"] > 0.5
