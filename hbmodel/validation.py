@@ -186,6 +186,9 @@ CHECKS = [
     Check("Reimers eta giving HB type 0 at [Fe/H]=-1.3 (old-halo locus), 12.5 Gyr", _eta_for_hb_type_zero, 0.477,
           0.07, "McDonald & Zijlstra 2015, MNRAS 448, 502: eta = 0.477 +- 0.070 for globular clusters; the old-halo "
           "HB-type locus crosses 0 near [Fe/H] = -1.3 (Lee, Demarque & Zinn 1994; from memory)", "population"),
+    Check("secondary clump: M_I(1 Gyr) - M_I(2 Gyr), solar", lambda: _clump(0.0, 1.0, "I") - _clump(0.0, 2.0, "I"),
+          0.3, 0.15, "Girardi 1999, MNRAS 308, 818: the clump of stars just above the helium-flash transition "
+          "mass is ~0.3-0.4 mag fainter (from memory)", "photometry"),
     # --- populations (issue "Populations")
     Check("HB type, [Fe/H]=-2.2, 12.5 Gyr, eta 0.45", lambda: _pred("hb_type", -2.2, 12.5, 0.45, 0.03), 0.85, 0.15,
           "Galactic globular clusters: metal-poor old halo HBs are blue, HB type ~+0.7..+1 "

@@ -73,8 +73,9 @@ def zahb_logl(mc_msun, menv_msun, mh, helium_excess=0.0):
     dy = as_float_array(helium_excess, "helium excess")
     l_he = 10.0 ** (c["he_logl0"] + c["he_dlogl_dmc"] * (mc - 0.49))
     from .giant_branch import mh_interp
-    tilt = 1.0 + mh_interp("zahb_shell.csv", "tilt", mh) * np.clip(np.log10(np.maximum(menv, 1e-6) / 0.06),
-                                                                  0.0, c["tilt_cap_dex"])
+    lx = np.log10(np.maximum(menv, 1e-6) / 0.06)
+    tilt = (1.0 + mh_interp("zahb_shell.csv", "tilt", mh) * np.clip(lx, 0.0, c["tilt_cap_dex"])
+            + mh_interp("zahb_shell.csv", "tilt_big", mh) * np.maximum(lx - c["tilt_cap_dex"], 0.0))
     l_h = (mh_interp("zahb_shell.csv", "h_l0", mh) * (mc / 0.49) ** c["h_mc_exp"]
            * menv / (menv + c["h_menv_half"]) * tilt * 10.0 ** (c["h_dy"] * dy))
     m_tot = mc + menv
