@@ -139,7 +139,7 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     true = {b: absmag[b] + obs.distance_modulus + ebv_star * extinction_ratio(b, teff, obs.rv, obs.law)
             for b in bands}
     cols = {"phase": stars.phase.astype("<U5"), "mass": stars.mass_msun, "teff": teff, "logg": stars.logg,
-            "logl": stars.logl, "is_rr": stars.is_rr, "rr_mode": stars.rr_mode, "period_days": stars.period_days,
+            "logl": stars.logl, "is_rr": stars.is_rr, "rr_mode": stars.rr_mode.astype(np.int16), "period_days": stars.period_days,
             "ebv": ebv_star}
     # field contamination
     if obs.n_field > 0:
