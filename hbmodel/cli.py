@@ -53,6 +53,8 @@ def _apply_config(parser: argparse.ArgumentParser, argv: list[str], cfg: dict):
     defaults = {}
     for key, value in cfg.items():
         action = known[key]
+        if isinstance(value, dict) or (isinstance(value, list) and any(isinstance(v, (dict, list)) for v in value)):
+            raise UserError(f"config key {key!r}: expected a number, string, boolean or list of them")
         if isinstance(value, list) and action.nargs in (None, "?"):
             value = ",".join(str(v) for v in value)
         if action.type is not None and isinstance(value, str):
@@ -115,6 +117,14 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("hbmodel: interrupted", file=sys.stderr)
         return 130
+    except Exception as exc:  # an unexpected failure: still one line (set HBMODEL_DEBUG=1 for the traceback)
+        import os
+        if os.environ.get("HBMODEL_DEBUG"):
+            raise
+        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+        print(f"hbmodel: internal error ({type(exc).__name__}): {msg} -- please report it; "
+              f"HBMODEL_DEBUG=1 shows the traceback", file=sys.stderr)
+        return 1
 
 
 def _find_config(argv: list[str]) -> str | None:
