@@ -188,22 +188,16 @@ class _Model:
         g_bg = self._bg(m, p)
         f_bg = 1.0 - fc * (1.0 + rb + ra)
         d_fc = gc - (1.0 + rb + ra) * g_bg
-        if self.has_bump:
-            gb, gb_mu, gb_s = self._gauss_and_derivs(m, mc + p["bump_offset"], s)
-            dens = dens + fc * rb * gb
-            d_mc = d_mc + fc * rb * gb_mu
-            d_s = d_s + fc * rb * gb_s
-            d_fc = d_fc + rb * gb
-            grads["bump_offset"] = fc * rb * gb_mu
-            grads["bump_ratio"] = fc * (gb - g_bg)
-        if self.has_agb:
-            ga, ga_mu, ga_s = self._gauss_and_derivs(m, mc + p["agb_offset"], s)
-            dens = dens + fc * ra * ga
-            d_mc = d_mc + fc * ra * ga_mu
-            d_s = d_s + fc * ra * ga_s
-            d_fc = d_fc + ra * ga
-            grads["agb_offset"] = fc * ra * ga_mu
-            grads["agb_ratio"] = fc * (ga - g_bg)
+        for on, name, ratio in ((self.has_bump, "bump", rb), (self.has_agb, "agb", ra)):
+            if not on:
+                continue
+            g, g_mu, g_s = self._gauss_and_derivs(m, mc + p[f"{name}_offset"], s)
+            dens = dens + fc * ratio * g
+            d_mc = d_mc + fc * ratio * g_mu
+            d_s = d_s + fc * ratio * g_s
+            d_fc = d_fc + ratio * g
+            grads[f"{name}_offset"] = fc * ratio * g_mu
+            grads[f"{name}_ratio"] = fc * (g - g_bg)
         dens = dens + f_bg * g_bg
         width = self.hi - self.lo
         if self.background == "exponential":

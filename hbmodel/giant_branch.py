@@ -52,10 +52,11 @@ def constants() -> dict:
 
 
 def mh_interp(table: str, column: str, mh):
-    """Linear interpolation of a per-[M/H] table column, linearly extrapolated at the ends."""
+    """Linear interpolation of a per-[M/H] table column, linearly extrapolated at the ends (at most
+    0.35 dex beyond the tabulated rows: ValueError outside MH_RANGE)."""
     t = read_table(table)
     x, y = t["mh"], t[column]
-    mh = np.asarray(mh, dtype=float)
+    mh = check_range(mh, "[M/H]", *MH_RANGE)
     out = np.interp(mh, x, y)
     lo = mh < x[0]
     hi = mh > x[-1]
@@ -151,8 +152,9 @@ def rgb_logl_from_core(mc_msun, mh):
 
 
 def rgb_core_from_logl(logl, mh):
-    """Inverse of :func:`rgb_logl_from_core`."""
-    return 10.0 ** ((np.asarray(logl, float) - cml_log_d(mh)) / constants()["cml_exponent"])
+    """Inverse of :func:`rgb_logl_from_core` (RGB log L -0.5...3.7)."""
+    logl = check_range(logl, "RGB log L", -0.5, 3.7)
+    return 10.0 ** ((logl - cml_log_d(mh)) / constants()["cml_exponent"])
 
 
 def _growth_coefficient(mh, x_env):

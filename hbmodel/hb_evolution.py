@@ -61,9 +61,14 @@ def hb_lifetime_myr(core_mass_msun, zahb_logteff, helium_excess=0.0):
 
 
 def hb_track(zahb_logl, zahb_logteff, tau):
-    """log L and log Teff at fractional HB age ``tau`` (0...1) for stars with the given ZAHB position."""
+    """log L and log Teff at fractional HB age ``tau`` (0...1) for stars with the given ZAHB position.
+
+    Track shapes from memory of published HB tracks (Dorman 1992, ApJS 81, 221; Dorman, Rood & O'Connell
+    1993, ApJ 419, 596).  Valid for ZAHB log L 0.5-2.6 and log Teff 3.55-4.70 (ValueError outside)."""
     c = _c()
     tau = check_range(tau, "fractional HB age tau", 0.0, 1.0)
+    check_range(zahb_logl, "ZAHB log L", 0.5, 2.6)
+    check_range(zahb_logteff, "ZAHB log Teff", 3.55, 4.70)
     l0 = np.asarray(zahb_logl, float)
     t0 = np.asarray(zahb_logteff, float)
     w_ehb, w_blue, w_red = class_weights(t0)
@@ -91,7 +96,8 @@ def agb_track(zahb_logl, zahb_logteff, s, mass_msun, mh, helium_excess=0.0):
     """log L and log Teff at fractional early-AGB age ``s`` (0...1).
 
     Piecewise in time: from the end of the HB to just below the AGB bump, a pile-up at the bump
-    (``agb_bump_frac`` of the time), then upward; Teff joins the AGB locus
+    (``agb_bump_frac`` of the time; AGB bump ~1 mag above the HB, Gallart 1998, ApJ 495, L43; duration
+    from N_AGB/N_HB, Buzzoni et al. 1983, A&A 128, 94 -- both from memory), then upward; Teff joins the AGB locus
     (:func:`hbmodel.giant_branch.agb_logteff`) within the first 10% of the stretch.
     """
     c = _c()

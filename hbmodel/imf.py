@@ -9,9 +9,11 @@ __all__ = ["imf_number_density", "tip_birth_rate"]
 
 
 def imf_number_density(m):
-    """Kroupa (2001) IMF, number of stars per Msun of initial mass per unit mass interval."""
+    """Kroupa (2001, MNRAS 322, 231) IMF: number of stars per Msun formed per unit mass interval.
+    Valid for 0.01-100 Msun (ValueError outside)."""
+    from ._validate import check_range
     t = read_table("imf_kroupa2001.csv")
-    m = np.asarray(m, float)
+    m = check_range(m, "stellar mass (Msun)", float(t["m_lo"][0]), float(t["m_hi"][-1]))
     # continuity constants and normalisation to 1 Msun formed
     k = [1.0]
     for i in range(1, len(t["alpha"])):

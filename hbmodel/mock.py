@@ -138,9 +138,11 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     teff = stars.teff_k
     true = {b: absmag[b] + obs.distance_modulus + ebv_star * extinction_ratio(b, teff, obs.rv, obs.law)
             for b in bands}
+    from .pulsation import MODE_NONE, period_days
+    mode = stars.rr_mode  # evaluated once: is_rr and the periods follow from it
     cols = {"phase": stars.phase.astype("<U5"), "mass": stars.mass_msun, "teff": teff, "logg": stars.logg,
-            "logl": stars.logl, "is_rr": stars.is_rr, "rr_mode": stars.rr_mode.astype(np.int16), "period_days": stars.period_days,
-            "ebv": ebv_star}
+            "logl": stars.logl, "is_rr": mode != MODE_NONE, "rr_mode": mode.astype(np.int16),
+            "period_days": period_days(stars.logl, stars.mass_msun, stars.logteff, mode), "ebv": ebv_star}
     # field contamination
     if obs.n_field > 0:
         if obs.field_table is not None:

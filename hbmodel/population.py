@@ -11,9 +11,10 @@ mixture: a fraction of stars enriched by dY) and an RGB mass-loss prescription
 * random draws (:meth:`Population.sample`) for mock catalogues, with an explicit
   ``numpy.random.Generator``.
 
-Star counts follow lifetimes: per unit birth rate at the RGB tip an RGB stretch
-holds ``t_RGB`` worth of stars, the HB ``t_HB`` and the early AGB ``t_EAGB``, so
-the R-parameter N_HB/N_RGB is a prediction, not an input.
+Star counts follow lifetimes (the fuel-consumption theorem, Renzini & Buzzoni
+1986, in Spectral Evolution of Galaxies, Reidel, p. 195): per unit birth rate at
+the RGB tip an RGB stretch holds ``t_RGB`` worth of stars, the HB ``t_HB`` and the
+early AGB ``t_EAGB``, so the R-parameter N_HB/N_RGB is a prediction, not an input.
 """
 from __future__ import annotations
 
@@ -204,12 +205,7 @@ class StarSet:
 
     @property
     def period_days(self):
-        p = np.full(len(self), np.nan)
-        mode = self.rr_mode
-        rr = mode != MODE_NONE
-        if rr.any():
-            p[rr] = period_days(self.logl[rr], self.mass_msun[rr], self.logteff[rr], mode[rr])
-        return p
+        return period_days(self.logl, self.mass_msun, self.logteff, self.rr_mode)
 
     def select(self, mask) -> "StarSet":
         return StarSet(**{k: getattr(self, k)[mask] for k in
@@ -504,7 +500,7 @@ class Population:
             return 0.0, 1.0
         lo, hi = (float(x) for x in logl_range)
         d = gb.constants()["bump_dlogl"]
-        mc = gb.rgb_core_from_logl(np.array([lo - d, hi + d]), sub.mh)
+        mc = gb.rgb_core_from_logl(np.clip(np.array([lo - d, hi + d]), -0.5, 3.7), sub.mh)
         mc = np.clip(mc, sub.mc_rgb_lo_msun, sub.core_mass_msun)
         t = gb.core_growth_time_myr(sub.mc_rgb_lo_msun, mc, sub.mh, sub.composition.x) / sub.t_rgb_myr
         return float(np.clip(t[0], 0, 1)), float(np.clip(t[1], 0, 1))

@@ -39,17 +39,9 @@ def mass_loss_from_args(args):
         from ..io import read_catalog
         t = read_catalog(args.hb_masses, required=("mass",))
         return MassLoss.from_hb_masses(np.asarray(t["mass"], float))
-    if args.eta is not None:
-        if args.eta < 0:
-            raise ValueError(f"--eta must be non-negative (got {args.eta:g})")
-        if args.eta_sd < 0:
-            raise ValueError("--eta-sd must be non-negative")
+    if args.eta is not None:  # MassLoss validates the values (one-line ValueError)
         return MassLoss.from_eta(args.eta, args.eta_sd, args.law)
     if args.mass_loss is not None:
-        if args.mass_loss < 0:
-            raise ValueError(f"--mass-loss must be non-negative (got {args.mass_loss:g})")
-        if args.mass_loss_sd < 0:
-            raise ValueError("--mass-loss-sd must be non-negative")
         return MassLoss.from_delta_m(args.mass_loss, args.mass_loss_sd, args.law)
     if getattr(args, "_mass_loss_required", True):
         raise ValueError("give the RGB mass loss: --eta ETA or --mass-loss DM (Msun)")
