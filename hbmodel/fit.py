@@ -39,7 +39,7 @@ import numpy as np
 
 from . import giant_branch as gb
 from .likelihood import (CMDLikelihood, ErrorModel, build_surrogate, fit_constants, hess_poisson_deviance,
-                         population_extent)
+                         pixel_for_errors, population_extent)
 from .mass_loss import mass_loss_from_eta
 from .population import Population
 
@@ -290,7 +290,9 @@ class MassLossFit:
                                           helium=self.population.helium, bands=bands, err_model=em,
                                           col_range=col_range, mag_range=mag_range, shift_c=float(s_mu[0]),
                                           shift_m=float(s_mu[1]), age_sd_gyr=pri.age_sd_gyr or 0.0,
-                                          delta_y_max=dy_max)
+                                          delta_y_max=dy_max,
+                                          pixel=pixel_for_errors(np.hypot(errs[bands[0]][inr],
+                                                                          errs[bands[1]][inr])))
         self.likelihood_ = CMDLikelihood(self.surrogate_, colour[inr], mag[inr], region, self.completeness,
                                          shift_lo=self._shift_lo, shift_hi=self._shift_hi)
         self.data_ = {"colour": colour[inr], "mag": mag[inr]}
@@ -471,20 +473,31 @@ class MassLossFit:
         return best.x, -best.fun
 
     def _laplace(self, names, x):
+        """Gaussian (Laplace) approximation of the posterior at the MAP ``x``: covariance matrix.
+
+        The finite-difference stencil is moved inside the prior box where the MAP sits on (or near) a
+        bound (e.g. no spread), so it never samples outside the prior; the precision matrix is made
+        positive definite (eigenvalues floored) and given the curvature of each uniform prior box,
+        12 / width^2, so that a direction the data do not constrain keeps the box's own variance
+        instead of an unbounded one."""
         f = self._log_post_fn(names)
         d = len(x)
         h = self._steps(names) * 0.3
-        for i, n in enumerate(names):  # stay inside the prior box
+        xc = np.array(x, float)
+        widths = np.zeros(d)
+        for i, n in enumerate(names):
             lo, hi = self._bnds[n]
-            h[i] = min(h[i], max(1e-5, 0.5 * (x[i] - lo)), max(1e-5, 0.5 * (hi - x[i]))) if (x[i] - lo) < h[i] or (hi - x[i]) < h[i] else h[i]
-        pts = [x.copy()]
+            widths[i] = hi - lo
+            h[i] = min(h[i], 0.2 * (hi - lo))
+            xc[i] = min(max(xc[i], lo + 1.01 * h[i]), hi - 1.01 * h[i])
+        pts = [xc.copy()]
         for i in range(d):
             for j in range(i, d):
                 for si, sj in ((1, 1), (1, -1), (-1, 1), (-1, -1)):
-                    y = x.copy(); y[i] += si * h[i]; y[j] += sj * h[j]
+                    y = xc.copy(); y[i] += si * h[i]; y[j] += sj * h[j]
                     pts.append(y)
-            for s in (1, -1):
-                y = x.copy(); y[i] += s * h[i]; pts.append(y)
+            for sgn in (1, -1):
+                y = xc.copy(); y[i] += sgn * h[i]; pts.append(y)
         vals = f(np.array(pts))
         vals = np.where(np.isfinite(vals), vals, vals[0] - 1e3)
         f0 = vals[0]
@@ -493,18 +506,40 @@ class MassLossFit:
         cache = {}
         for i in range(d):
             for j in range(i, d):
-                fpp, fpm, fmp, fmm = vals[k:k + 4]; k += 4
-                cache[(i, j)] = (fpp, fpm, fmp, fmm)
-            fp, fm = vals[k:k + 2]; k += 2
+                cache[(i, j)] = vals[k:k + 4]
+                k += 4
+            fp, fm = vals[k:k + 2]
+            k += 2
             H[i, i] = (fp - 2 * f0 + fm) / h[i] ** 2
         for (i, j), (fpp, fpm, fmp, fmm) in cache.items():
             if i != j:
                 H[i, j] = H[j, i] = (fpp - fpm - fmp + fmm) / (4 * h[i] * h[j])
-        cov = np.linalg.inv(-H)
-        w, V = np.linalg.eigh(0.5 * (cov + cov.T))
-        if np.any(w <= 0):  # not positive definite: fall back to the diagonal curvature
-            cov = np.diag(1.0 / np.maximum(-np.diag(H), 1e-12))
-        return cov
+        P = -0.5 * (H + H.T)
+        scale = np.sqrt(np.maximum(np.abs(np.diag(P)), 1e-300))
+        w, V = np.linalg.eigh(P / np.outer(scale, scale))
+        w = np.maximum(w, 1e-9 * max(float(w.max()), 1e-300))
+        P = (V * w) @ V.T * np.outer(scale, scale)
+        box = np.where(np.isfinite(widths) & (widths > 0), 12.0 / np.maximum(widths, 1e-300) ** 2, 0.0)
+        P = P + np.diag(box)
+        cov = np.linalg.inv(P)
+        return 0.5 * (cov + cov.T)
+
+    def _laplace_draws(self, names, x_map, cov, rng, n=4000):
+        """Draws of the Laplace Gaussian truncated to the prior box (rejection, then clipping)."""
+        lo = np.array([self._bnds[nm][0] for nm in names], float)
+        hi = np.array([self._bnds[nm][1] for nm in names], float)
+        kept, have = [], 0
+        for _ in range(20):
+            dr = rng.multivariate_normal(x_map, cov, size=n)
+            dr = dr[np.all((dr >= lo) & (dr <= hi), axis=1)]
+            kept.append(dr)
+            have += len(dr)
+            if have >= n:
+                break
+        out = np.concatenate(kept)[:n]
+        if len(out) < n // 4:   # the box holds little of the Gaussian: clip instead of rejecting
+            out = np.clip(rng.multivariate_normal(x_map, cov, size=n), lo, hi)
+        return out
 
     # ------------------------------------------------------------------ fit
     def fit(self, catalog=None, masses=None):
@@ -559,11 +594,7 @@ class MassLossFit:
         t_opt = time.perf_counter() - t_start
         if self.sampler == "laplace":
             cov = self._laplace(names, x_map)
-            draws = rng.multivariate_normal(x_map, cov, size=4000)
-            # keep inside the prior box (the Laplace approximation is a local Gaussian)
-            ok = np.all([(draws[:, i] >= self._bnds[n][0]) & (draws[:, i] <= self._bnds[n][1])
-                         for i, n in enumerate(names)], axis=0)
-            chain = draws[ok] if ok.sum() > 100 else draws
+            chain = self._laplace_draws(names, x_map, cov, rng)
             self.autocorr_time_ = None
             self.converged_ = True
             self.acceptance_fraction_ = None

@@ -60,6 +60,21 @@ def hb_lifetime_myr(core_mass_msun, zahb_logteff, helium_excess=0.0):
             * (1.0 + c["ehb_boost"] * w_ehb))
 
 
+def _power(x, n):
+    """``x ** n``; integer exponents by repeated multiplication (several times faster than ``pow``)."""
+    k = int(n)
+    if k != n or not 1 <= k <= 16:
+        return x ** n
+    out, base = None, x
+    while k:
+        if k & 1:
+            out = base.copy() if out is None else out * base
+        k >>= 1
+        if k:
+            base = base * base
+    return out
+
+
 def hb_track(zahb_logl, zahb_logteff, tau):
     """log L and log Teff at fractional HB age ``tau`` (0...1) for stars with the given ZAHB position.
 
@@ -67,18 +82,26 @@ def hb_track(zahb_logl, zahb_logteff, tau):
     1993, ApJ 419, 596).  Valid for ZAHB log L 0.5-2.6 and log Teff 3.55-4.70 (ValueError outside)."""
     c = _c()
     tau = check_range(tau, "fractional HB age tau", 0.0, 1.0)
-    check_range(zahb_logl, "ZAHB log L", 0.5, 2.6)
-    check_range(zahb_logteff, "ZAHB log Teff", 3.55, 4.70)
-    l0 = np.asarray(zahb_logl, float)
-    t0 = np.asarray(zahb_logteff, float)
+    l0 = check_range(zahb_logl, "ZAHB log L", 0.5, 2.6)
+    t0 = check_range(zahb_logteff, "ZAHB log Teff", 3.55, 4.70)
+    l0, t0, tau = np.broadcast_arrays(l0, t0, tau)
     w_ehb, w_blue, w_red = class_weights(t0)
-    dl = (w_red * (c["red_a"] * tau + c["red_b"] * tau ** c["red_n"])
-          + w_blue * (c["blue_a"] * tau + c["blue_b"] * tau ** c["blue_n"])
-          + w_ehb * (c["ehb_a"] * tau + c["ehb_b"] * tau ** c["ehb_n"]))
-    dt = (w_red * (c["red_loop"] * np.sin(np.pi * tau) - c["red_late"] * tau ** 8)
-          - w_blue * c["blue_shift"] * np.clip(t0 - 3.75, 0.0, None) * tau ** c["blue_n"]
-          + w_ehb * c["ehb_heat"] * tau ** 2)
-    return l0 + dl, t0 + dt
+    p_blue = _power(tau, c["blue_n"])
+    # dlog L = sum over families of w (a tau + b tau^n)
+    dl = (w_red * c["red_a"] + w_blue * c["blue_a"] + w_ehb * c["ehb_a"]) * tau
+    dl += w_red * c["red_b"] * _power(tau, c["red_n"])
+    dl += w_blue * c["blue_b"] * p_blue
+    dl += w_ehb * c["ehb_b"] * _power(tau, c["ehb_n"])
+    dl += l0
+    # dlog Teff: red loop and late redward turn, blue-HB redward drift, extreme-HB heating
+    dt = np.sin(np.pi * tau)
+    dt *= c["red_loop"]
+    dt -= c["red_late"] * _power(tau, 8)
+    dt *= w_red
+    dt -= (c["blue_shift"] * w_blue) * np.clip(t0 - 3.75, 0.0, None) * p_blue
+    dt += (c["ehb_heat"] * w_ehb) * (tau * tau)
+    dt += t0
+    return dl, dt
 
 
 def reaches_agb(zahb_logteff):

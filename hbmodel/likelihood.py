@@ -42,6 +42,7 @@ from .population import Population, StarSet
 from .zahb import MENV_MIN_MSUN, zahb_state
 
 __all__ = ["ErrorModel", "HBSurrogate", "CMDLikelihood", "hat_gaussian_weights", "build_surrogate",
+           "pixel_for_errors",
            "hess_poisson_deviance"]
 
 _SQ2PI = np.sqrt(2.0 * np.pi)
@@ -296,6 +297,19 @@ def _deposit(col, mag, w, kidx, n_img, col_edges, mag_edges, err_model, bands, s
 _CACHE: dict = {}
 
 
+def pixel_for_errors(colour_err, mag_err=None) -> float:
+    """Basis-image pixel (mag) matched to the sharpest data: half the 10th-percentile colour error,
+    within [pixel_min_mag, pixel_mag] of ``tables/fit_settings.csv``.  A surrogate coarser than the
+    photometric errors smooths away structure the data resolve (a red clump measured to 0.01 mag) and
+    biases the parameters that move that structure."""
+    c = fit_constants()
+    e = np.asarray(colour_err, float)
+    e = e[np.isfinite(e) & (e > 0)]
+    if e.size == 0:
+        return float(c["pixel_mag"])
+    return float(np.clip(0.5 * np.percentile(e, 10), c["pixel_min_mag"], c["pixel_mag"]))
+
+
 def build_surrogate(*, feh, alpha_fe, age_gyr, helium, bands, err_model, col_range, mag_range,
                     shift_c, shift_m, age_sd_gyr=0.0, delta_y_max=0.0, pixel=None, teff_ref_k=None,
                     cache=True) -> HBSurrogate:
@@ -311,7 +325,6 @@ def build_surrogate(*, feh, alpha_fe, age_gyr, helium, bands, err_model, col_ran
            round(float(age_sd_gyr), 4), round(float(delta_y_max), 4), pixel)
     if cache and key in _CACHE:
         return _CACHE[key]
-    floor = c["smooth_floor_mag"]
     if pixel is None:
         pixel = c["pixel_mag"]
     nc = max(8, int(np.ceil((col_range[1] - col_range[0]) / pixel)))
@@ -320,6 +333,9 @@ def build_surrogate(*, feh, alpha_fe, age_gyr, helium, bands, err_model, col_ran
     nc, nm = int(np.ceil(nc / scale)), int(np.ceil(nm / scale))
     col_edges = np.linspace(col_range[0], col_range[1], nc + 1)
     mag_edges = np.linspace(mag_range[0], mag_range[1], nm + 1)
+    # smoothing floor tied to the pixel actually used: the kernels stay resolved by the pixels, and the
+    # model is never smoother than the image resolution requires
+    floor = c["smooth_floor_per_pixel"] * max(col_edges[1] - col_edges[0], mag_edges[1] - mag_edges[0])
     # helium nodes
     if delta_y_max > 0:
         n_dy = int(np.ceil(delta_y_max / c["delta_y_step"])) + 1

@@ -1,7 +1,8 @@
 """Mock catalogues: a population's stars observed as a survey or cluster study would see them.
 
-Pipeline: :meth:`Population.sample` (RGB, HB and early-AGB stars in lifetime
-proportion) -> absolute magnitudes (:mod:`hbmodel.photometry`) -> optional
+Pipeline: :class:`hbmodel.sampler.StarSampler` (RGB, HB and early-AGB stars in
+lifetime proportion, with absolute magnitudes, from tables built once per
+population) -> optional
 unresolved companions -> distance and (differential) extinction
 (:mod:`hbmodel.extinction`) -> photometric errors and completeness
 (:mod:`hbmodel.observe`) -> optional field contamination.  Everything random
@@ -20,7 +21,7 @@ import numpy as np
 from .imf import imf_number_density
 from .population import Population, StarSet
 
-__all__ = ["ObservationSpec", "make_mock", "expected_hb_count", "imf_number_density"]
+__all__ = ["ObservationSpec", "make_mock", "star_sampler", "expected_hb_count", "imf_number_density"]
 
 
 @dataclass(frozen=True)
@@ -75,34 +76,49 @@ def expected_hb_count(population: Population, total_mass_msun: float) -> float:
     return n
 
 
-def _companions(stars: StarSet, rng, bands):
+def _companions(mass_msun, feh, rng, bands):
     """Main-sequence companions with mass ratio q ~ U(0.1, 1) of the primary's initial mass.
 
     Main-sequence L ~ M^4, R ~ M^0.8 (common practice, textbook homology scalings)."""
     from .photometry import absolute_magnitudes
-    q = rng.uniform(0.1, 1.0, len(stars))
-    m = np.clip(q * np.minimum(stars.mass_msun, 1.0), 0.1, None)
+    q = rng.uniform(0.1, 1.0, len(mass_msun))
+    m = np.clip(q * np.minimum(mass_msun, 1.0), 0.1, None)
     logl = 4.0 * np.log10(m)
     logr = 0.8 * np.log10(m)
     logt = np.log10(5772.0) + 0.25 * logl - 0.5 * logr
     logt = np.clip(logt, np.log10(3000.0), np.log10(50000.0))
     logg = np.clip(4.438 + np.log10(m) - 2 * logr, -0.5, 6.5)
-    return absolute_magnitudes(10 ** logt, logg, stars.feh, logl, bands)
+    return absolute_magnitudes(10 ** logt, logg, feh, logl, bands)
+
+
+def star_sampler(population: Population, bands, rv=3.1, law="F99"):
+    """The :class:`hbmodel.sampler.StarSampler` of ``population`` for these bands and extinction law
+    (built once and kept on the population, which is immutable, so repeated mocks reuse the tables)."""
+    from .sampler import StarSampler
+    cache = population.__dict__.setdefault("_sampler_cache", {})
+    key = (tuple(bands), float(rv), str(law))
+    if key not in cache:
+        if len(cache) > 8:
+            cache.clear()
+        cache[key] = StarSampler(population, bands, rv, law)
+    return cache[key]
 
 
 def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=None, total_mass_msun=None,
               obs: ObservationSpec = ObservationSpec()):
     """Generate a mock catalogue (astropy Table) of RGB, HB and early-AGB stars (and field stars).
 
-    Columns: ``phase`` (rgb/hb/agb/field), ``mass`` [Msun], ``teff`` [K], ``logg`` [cgs], ``logl``
-    [Lsun], ``is_rr``, ``rr_mode`` (0 none, 1 RRab, 2 RRc), ``period_days``, ``ebv``, and per band
-    ``<band>`` (observed apparent magnitude), ``<band>_err``, ``<band>_true``.
+    Stars come from the population's tabulated sampler (:mod:`hbmodel.sampler`).  Columns: ``phase``
+    (rgb/hb/agb/field), ``mass`` [Msun], ``teff`` [K], ``logg`` [cgs], ``logl`` [Lsun], ``is_rr``,
+    ``rr_mode`` (0 none, 1 RRab, 2 RRc), ``period_days``, ``ebv``, and per band ``<band>`` (observed
+    apparent magnitude), ``<band>_err``, ``<band>_true``.
     """
     from astropy.table import Table
-    from .extinction import extinction_ratio
     from .observe import (CMDBox, Completeness, add_unresolved_binaries, default_error_law,
                           differential_reddening, observe_magnitudes, resample_field, uniform_contaminants)
     from .photometry import get_band
+    from .population import PHASES
+    from .pulsation import MODE_NONE
 
     if not isinstance(rng, np.random.Generator):
         raise ValueError("make_mock needs a numpy.random.Generator")
@@ -128,21 +144,27 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
         # RGB luminosities that can land in the window (generous bolometric-correction margin)
         abs_b, abs_f = bright - obs.distance_modulus - 0.5, faint - obs.distance_modulus + 3.0
         rgb_range = ((4.74 - abs_f) / 2.5, (4.74 - abs_b) / 2.5 + 0.6)
-    stars = population.sample(int(n_hb), rng, rgb_logl_range=rgb_range)
-    absmag = stars.absolute_magnitudes(bands)
-    if obs.binary_fraction > 0:
-        comp = _companions(stars, rng, bands)
-        absmag = add_unresolved_binaries(absmag, comp, obs.binary_fraction, rng)
-    n = len(stars)
-    ebv_star = differential_reddening(n, obs.ebv, rng, sd=obs.ebv_sd) if n else np.zeros(0)
-    teff = stars.teff_k
-    true = {b: absmag[b] + obs.distance_modulus + ebv_star * extinction_ratio(b, teff, obs.rv, obs.law)
-            for b in bands}
-    from .pulsation import MODE_NONE, period_days
-    mode = stars.rr_mode  # evaluated once: is_rr and the periods follow from it
-    cols = {"phase": stars.phase.astype("<U5"), "mass": stars.mass_msun, "teff": teff, "logg": stars.logg,
-            "logl": stars.logl, "is_rr": mode != MODE_NONE, "rr_mode": mode.astype(np.int16),
-            "period_days": period_days(stars.logl, stars.mass_msun, stars.logteff, mode), "ebv": ebv_star}
+    sampler = star_sampler(population, bands, obs.rv, obs.law)
+    per_star = obs.ebv_sd > 0 or obs.binary_fraction > 0
+    d = sampler.draw(int(n_hb), rng, rgb_logl_range=rgb_range, distance_modulus=obs.distance_modulus,
+                     ebv=None if per_star else obs.ebv)
+    n = len(d["phase"])
+    if per_star:
+        absmag = {b: d[f"M_{b}"] for b in bands}
+        if obs.binary_fraction > 0:
+            feh = np.array([s.composition.feh for s in population.subpopulations])[d["sub"]]
+            comp = _companions(d["mass"], feh, rng, bands)
+            absmag = add_unresolved_binaries(absmag, comp, obs.binary_fraction, rng)
+        ebv_star = differential_reddening(n, obs.ebv, rng, sd=obs.ebv_sd) if n else np.zeros(0)
+        true = {b: absmag[b] + obs.distance_modulus + ebv_star * d[f"R_{b}"] for b in bands}
+    else:
+        ebv_star = np.full(n, float(obs.ebv))
+        true = {b: d[f"{b}_true"] for b in bands}
+    mode = d["rr_mode"]
+    names = np.array(PHASES + ("field",), dtype="<U5" if obs.n_field > 0 else "<U3")
+    cols = {"phase": names[d["phase"]], "mass": d["mass"], "teff": d["teff"], "logg": d["logg"],
+            "logl": d["logl"], "is_rr": mode != MODE_NONE, "rr_mode": mode.astype(np.int16),
+            "period_days": d["period_days"], "ebv": ebv_star}
     # field contamination
     if obs.n_field > 0:
         if obs.field_table is not None:
@@ -177,13 +199,13 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     if obs.window is not None:
         wband, bright, faint = obs.window
         keep &= (observed[wband] >= bright) & (observed[wband] <= faint)
-    t = Table()
-    for k, v in cols.items():
-        t[k] = v[keep]
+    sel = (lambda v: v) if keep.all() else (lambda v: v[keep])
+    data = {k: sel(v) for k, v in cols.items()}
     for b in bands:
-        t[b] = observed[b][keep]
-        t[f"{b}_err"] = errors[b][keep]
-        t[f"{b}_true"] = true[b][keep]
+        data[b] = sel(observed[b])
+        data[f"{b}_err"] = sel(errors[b])
+        data[f"{b}_true"] = sel(true[b])
+    t = Table(data, copy=False)
     t.meta["hbmodel_mock"] = {"n_hb_drawn": int(n_hb), "distance_modulus": obs.distance_modulus,
                               "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands)}
     return t

@@ -31,9 +31,10 @@ def _c() -> dict:
     return {k: float(v[0]) for k, v in read_table("pulsation.csv").items()}
 
 
-def _edge(name, logl, mass):
+def _edge(name, logl, mass=None, logm=None):
     c = _c()
-    return c[f"{name}_a"] + c[f"{name}_b"] * np.asarray(logl, float) + c[f"{name}_c"] * np.log10(np.asarray(mass, float))
+    logm = np.log10(np.asarray(mass, float)) if logm is None else logm
+    return c[f"{name}_a"] + c[f"{name}_b"] * np.asarray(logl, float) + c[f"{name}_c"] * logm
 
 
 def strip_edges(logl, mass_msun):
@@ -46,22 +47,39 @@ LOGL_RANGE = (1.3, 2.3)
 MASS_RANGE_MSUN = (0.45, 0.9)
 
 
+def _edge_bounds():
+    """Hottest and coolest log Teff any strip edge reaches inside the RR Lyrae domain (edges are
+    linear in log L and log M, so the extremes lie at the domain's corners)."""
+    ll = np.array([LOGL_RANGE[0], LOGL_RANGE[0], LOGL_RANGE[1], LOGL_RANGE[1]])
+    lm = np.log10(np.array([MASS_RANGE_MSUN[0], MASS_RANGE_MSUN[1]] * 2))
+    e = np.concatenate([_edge(n, ll, logm=lm) for n in ("fobe", "fre", "fbe", "fore")])
+    return float(e.min()) - 1e-9, float(e.max()) + 1e-9
+
+
 def pulsation_mode(logteff, logl, mass_msun):
     """0 outside the strip, 1 for fundamental (RRab), 2 for first overtone (RRc).
 
     Only stars in the RR Lyrae domain (log L 1.3-2.3, 0.45-0.9 Msun) are flagged: more massive
     core-helium burners crossing the strip are not RR Lyrae (anomalous/classical Cepheids), and are
     returned as 0."""
-    logteff = np.asarray(logteff, float)
-    logl_a = np.asarray(logl, float)
-    mass_a = np.asarray(mass_msun, float)
-    blue, red = strip_edges(logl, mass_msun)
-    domain = ((logl_a >= LOGL_RANGE[0]) & (logl_a <= LOGL_RANGE[1])
-              & (mass_a >= MASS_RANGE_MSUN[0]) & (mass_a <= MASS_RANGE_MSUN[1]))
-    inside = (logteff <= blue) & (logteff >= red) & domain
+    logteff, logl_a, mass_a = np.broadcast_arrays(np.asarray(logteff, float), np.asarray(logl, float),
+                                                  np.asarray(mass_msun, float))
+    mode = np.zeros(logteff.shape, np.int8)
+    t_lo, t_hi = _edge_bounds()
+    # edges are evaluated only for stars that can be in the strip at all
+    cand = np.flatnonzero((logteff >= t_lo) & (logteff <= t_hi) & (logl_a >= LOGL_RANGE[0])
+                          & (logl_a <= LOGL_RANGE[1]) & (mass_a >= MASS_RANGE_MSUN[0])
+                          & (mass_a <= MASS_RANGE_MSUN[1]))
+    if cand.size == 0:
+        return mode
+    lt, ll = logteff.ravel()[cand], logl_a.ravel()[cand]
+    logm = np.log10(mass_a.ravel()[cand])
+    inside = (lt <= _edge("fobe", ll, logm=logm)) & (lt >= _edge("fre", ll, logm=logm))
     c = _c()
-    mid = c["split_w"] * _edge("fbe", logl, mass_msun) + (1 - c["split_w"]) * _edge("fore", logl, mass_msun)
-    return np.where(inside, np.where(logteff > mid, MODE_RRC, MODE_RRAB), MODE_NONE).astype(np.int8)
+    mid = c["split_w"] * _edge("fbe", ll, logm=logm) + (1 - c["split_w"]) * _edge("fore", ll, logm=logm)
+    flat = mode.reshape(-1)
+    flat[cand] = np.where(inside, np.where(lt > mid, MODE_RRC, MODE_RRAB), MODE_NONE)
+    return mode
 
 
 def fundamentalised_period_days(logl, mass_msun, logteff):
@@ -78,12 +96,12 @@ def fundamentalised_period_days(logl, mass_msun, logteff):
 def period_days(logl, mass_msun, logteff, mode):
     """Observed period for the assigned mode (NaN outside the strip)."""
     mode = np.asarray(mode)
-    if not np.any(mode != MODE_NONE):
-        return np.full(mode.shape, np.nan)
-    logl, mass_msun, logteff = np.broadcast_arrays(np.asarray(logl, float), np.asarray(mass_msun, float),
-                                                   np.asarray(logteff, float))
-    ok = mode != MODE_NONE
-    pf = np.full(mode.shape, np.nan)
-    pf[ok] = fundamentalised_period_days(logl[ok], mass_msun[ok], logteff[ok])
-    p = np.where(mode == MODE_RRC, pf * 10.0 ** _c()["log_p1_p0"], pf)
-    return np.where(mode == MODE_NONE, np.nan, p)
+    out = np.full(mode.shape, np.nan)
+    ok = np.flatnonzero(mode != MODE_NONE)
+    if ok.size == 0:
+        return out
+    logl, mass_msun, logteff = (np.broadcast_to(np.asarray(x, float), mode.shape).ravel()[ok]
+                                for x in (logl, mass_msun, logteff))
+    pf = fundamentalised_period_days(logl, mass_msun, logteff)
+    out.reshape(-1)[ok] = np.where(mode.ravel()[ok] == MODE_RRC, pf * 10.0 ** _c()["log_p1_p0"], pf)
+    return out
