@@ -46,6 +46,9 @@ from .population import Population
 __all__ = ["Priors", "MassLossFit", "MODELS", "REPORTED"]
 
 MODELS = ("spread", "helium", "both")
+#: Finite-difference step of the Laplace Hessian, in units of the optimiser's parameter steps (own choice,
+#: checked by the simulation-based calibration tests).
+_LAPLACE_STEP = 0.3
 #: Parameters reported in the summary (when present).
 REPORTED = ("mass_loss", "mass_loss_sd", "hb_mass_mean", "eta", "distance_modulus", "ebv", "helium_fraction",
             "delta_y", "age", "field_fraction", "colour_offset", "mag_offset", "rgb_mass_sd")
@@ -449,6 +452,7 @@ class MassLossFit:
         return np.array(out)
 
     def _map(self, names, x0=None):
+        """Posterior maximum: Nelder-Mead from the mass-loss scan's best point (or from ``x0``)."""
         from scipy.optimize import minimize
         f = self._log_post_fn(names)
         x0 = self._start(names) if x0 is None else x0
@@ -482,7 +486,7 @@ class MassLossFit:
         instead of an unbounded one."""
         f = self._log_post_fn(names)
         d = len(x)
-        h = self._steps(names) * 0.3
+        h = self._steps(names) * _LAPLACE_STEP
         xc = np.array(x, float)
         widths = np.zeros(d)
         for i, n in enumerate(names):
