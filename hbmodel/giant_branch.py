@@ -28,7 +28,7 @@ from ._validate import as_float_array, check_range
 __all__ = [
     "MH_RANGE", "AGE_RANGE_GYR", "tip_age_gyr", "tip_mass_msun", "ms_lifetime_gyr",
     "rgb_tip_logl", "cml_log_d", "rgb_logl_from_core", "rgb_core_from_logl", "core_growth_time_myr",
-    "core_from_time", "rgb_logteff", "agb_logteff", "radius_rsun", "log_g", "bump_logl", "constants",
+    "core_from_time", "rgb_logteff", "agb_logteff", "radius_rsun", "log_g", "log_g_from_logs", "bump_logl", "constants",
     "mh_interp", "L_SUN_ERG_S", "M_SUN_G", "YEAR_S", "LOG_G_SUN",
 ]
 
@@ -210,8 +210,19 @@ def radius_rsun(logl, logteff):
 
 def log_g(mass_msun, logl, logteff):
     """Surface gravity log10 g [cgs] from mass, luminosity and Teff (IAU 2015 nominal solar values)."""
-    r = radius_rsun(logl, logteff)
-    return LOG_G_SUN + np.log10(np.asarray(mass_msun, float)) - 2.0 * np.log10(r)
+    return log_g_from_logs(np.log10(np.asarray(mass_msun, float)), logl, logteff)
+
+
+def log_g_from_logs(log_mass, logl, logteff, out=None):
+    """``log g = log g_sun + log M - log L + 4 (log Teff - log Teff_sun)`` (g = GM/R^2 with the
+    Stefan-Boltzmann radius; IAU 2015 nominal solar values), from logarithms only: no power or log per star.
+    ``out`` receives the result (in place) if given."""
+    out = np.subtract(logteff, np.log10(5772.0), out=out)
+    out *= 4.0
+    out += log_mass
+    out -= logl
+    out += LOG_G_SUN
+    return out
 
 
 def bump_logl(mh, age_gyr):

@@ -297,7 +297,7 @@ def _deposit(col, mag, w, kidx, n_img, col_edges, mag_edges, err_model, bands, s
 _CACHE: dict = {}
 
 
-def pixel_for_errors(colour_err, mag_err=None) -> float:
+def pixel_for_errors(colour_err) -> float:
     """Basis-image pixel (mag) matched to the sharpest data: half the 10th-percentile colour error,
     within [pixel_min_mag, pixel_mag] of ``tables/fit_settings.csv``.  A surrogate coarser than the
     photometric errors smooths away structure the data resolve (a red clump measured to 0.01 mag) and

@@ -219,10 +219,7 @@ class ErrorLaw:
         if self._interp is not None:
             lo, hi = self.table_mag[0], self.table_mag[-1]
             return np.asarray(self._interp(np.clip(m, lo, hi)), dtype=float)
-        if m.ndim == 0:
-            with np.errstate(over="ignore"):
-                return self.floor_mag + np.exp((m - self.m0_mag) / self.scale_mag)
-        s = np.subtract(m, self.m0_mag)        # in place from here: mocks call this on 10^7 stars
+        s = np.subtract(m, self.m0_mag, out=np.empty(m.shape))  # in place from here: mocks call this on 10^7 stars
         s *= 1.0 / self.scale_mag
         with np.errstate(over="ignore"):
             np.exp(s, out=s)

@@ -454,7 +454,12 @@ class FixedMetallicityPhotometry:
         return g
 
     def absolute_magnitudes(self, logteff, logg, logl, located=None) -> dict[str, np.ndarray]:
-        """``M_band`` for every band; ``located`` may pass a precomputed ``locate(logteff)``."""
+        """``M_band`` for every band; ``located`` may pass a precomputed ``locate(logteff)``.
+
+        Valid for 3,000-50,000 K and log g -0.5...6.5 (ValueError outside), as :func:`absolute_magnitudes`."""
+        check_range(logteff, "log Teff", np.log10(TEFF_RANGE_K[0]) - 1e-12, np.log10(TEFF_RANGE_K[1]) + 1e-12,
+                    what="photometric calibration range")
+        check_range(logg, "logg", *LOGG_RANGE, what="photometric calibration range")
         i, f = self.locate(logteff) if located is None else located
         wg = self.gravity_weight(logg)
         mbol = M_BOL_SUN - 2.5 * np.asarray(logl, float)

@@ -470,28 +470,39 @@ class Population:
         n_hb = int(n_hb)
         if n_hb <= 0:
             raise ValueError("the number of HB stars must be positive")
-        rates = self.phase_times()
-        tot_hb = rates["hb"].sum()
-        if tot_hb <= 0:
-            raise ValueError("no star of this population reaches the HB (all envelopes lost on the RGB)")
-        counts = {ph: rates[ph] / tot_hb * n_hb for ph in PHASES}
         sets = []
-        for i, sub in enumerate(self.subpopulations):
-            for ph in phases:
-                n = int(np.floor(counts[ph][i])) + int(rng.random() < counts[ph][i] % 1)
-                if n == 0:
-                    continue
-                if ph == "rgb":
-                    v_lo, v_hi = self._rgb_time_window(sub, rgb_logl_range)
-                    n = int(np.floor(counts[ph][i] * (v_hi - v_lo)))
-                    n += int(rng.random() < (counts[ph][i] * (v_hi - v_lo)) % 1)
-                    if n:
-                        v = v_lo + (v_hi - v_lo) * rng.random(n)
-                        sets.append(self._rgb_nodes(i, sub, v, np.ones(n) / sub.weight))
-                    continue
+        for i, ph, n, (v_lo, v_hi) in self.phase_counts(n_hb, rng, phases, rgb_logl_range):
+            sub = self.subpopulations[i]
+            if ph == "rgb":
+                v = v_lo + (v_hi - v_lo) * rng.random(n)
+                sets.append(self._rgb_nodes(i, sub, v, np.ones(n) / sub.weight))
+            else:
                 sets.append(self._sample_hb_agb(i, sub, ph, n, rng))
         out = StarSet.concatenate(sets)
         out.weight = np.ones(len(out))
+        return out
+
+    def phase_counts(self, n_hb, rng, phases=PHASES, rgb_logl_range=None, rates=None):
+        """Random star counts per (sub-population, phase) for ``n_hb`` expected HB stars.
+
+        Expected counts follow the time spent in each phase (:meth:`phase_times`, or ``rates`` if already
+        computed); each is rounded down and gets one more star with probability equal to its fractional
+        part, so counts are unbiased.  RGB counts cover only the stretch of ``rgb_logl_range``.  Returns a
+        list of ``(sub_index, phase, n, (v_lo, v_hi))`` with ``n > 0``; ``(v_lo, v_hi)`` is the interval of
+        fractional RGB age to draw from (``(0, 1)`` for the HB and AGB)."""
+        rates = self.phase_times() if rates is None else rates
+        tot_hb = rates["hb"].sum()
+        if tot_hb <= 0:
+            raise ValueError("no star of this population reaches the HB (all envelopes lost on the RGB)")
+        out = []
+        for i, sub in enumerate(self.subpopulations):
+            for ph in phases:
+                mean = rates[ph][i] / tot_hb * n_hb
+                win = self._rgb_time_window(sub, rgb_logl_range) if ph == "rgb" else (0.0, 1.0)
+                mean *= win[1] - win[0]
+                n = int(np.floor(mean)) + int(rng.random() < mean % 1)
+                if n > 0 and mean > 0:
+                    out.append((i, ph, n, win))
         return out
 
     def _rgb_time_window(self, sub, logl_range):

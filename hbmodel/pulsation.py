@@ -47,6 +47,7 @@ LOGL_RANGE = (1.3, 2.3)
 MASS_RANGE_MSUN = (0.45, 0.9)
 
 
+@functools.lru_cache(maxsize=None)
 def _edge_bounds():
     """Hottest and coolest log Teff any strip edge reaches inside the RR Lyrae domain (edges are
     linear in log L and log M, so the extremes lie at the domain's corners)."""

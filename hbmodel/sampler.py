@@ -27,10 +27,10 @@ import numpy as np
 
 from . import hb_evolution as hbe
 from .extinction import extinction_ratio
-from .giant_branch import LOG_G_SUN
-from .photometry import FixedMetallicityPhotometry, _Uniform, absolute_magnitudes, get_band
+from .giant_branch import log_g_from_logs
+from .photometry import FixedMetallicityPhotometry, _Uniform, get_band
 from .population import PHASES, Population
-from .pulsation import MODE_NONE, period_days, pulsation_mode
+from .pulsation import period_days, pulsation_mode
 from .zahb import MENV_MIN_MSUN, zahb_state
 
 __all__ = ["StarSampler", "PHASE_CODES", "N_RGB_NODES", "N_MASS_NODES"]
@@ -41,7 +41,6 @@ N_RGB_NODES = 16385
 N_MASS_NODES = 4097
 _CHUNK = 1 << 13      # stars per chunk: 64 kB temporaries stay in cache and below malloc's mmap threshold
 _N_U = 8192           # mass-loss quantile cells used to build the lifetime-weighted mass distribution
-_LOG_TSUN = np.log10(5772.0)
 
 
 @dataclass
@@ -84,13 +83,10 @@ class StarSampler:
         phot = FixedMetallicityPhotometry(sub.composition.feh, self.bands, extra=self._ratio_columns())
         rgb = None
         if sub.t_rgb_myr > 0:
-            v = np.linspace(0.0, 1.0, N_RGB_NODES)
-            st = pop._rgb_nodes(i, sub, v)
-            logt = np.clip(st.logteff, np.log10(3000.0), np.log10(50000.0))
-            teff = 10.0 ** logt
-            logg = LOG_G_SUN + np.log10(st.mass_msun) - st.logl + 4.0 * (st.logteff - _LOG_TSUN)
-            cols = {"mass": st.mass_msun, "logl": st.logl, "teff": teff, "logg": logg}
-            mags = absolute_magnitudes(teff, np.clip(logg, -0.5, 6.5), sub.composition.feh, st.logl, self.bands)
+            st = pop._rgb_nodes(i, sub, np.linspace(0.0, 1.0, N_RGB_NODES))
+            mags = st.absolute_magnitudes(self.bands)
+            teff = np.clip(st.teff_k, 3000.0, 50000.0)
+            cols = {"mass": st.mass_msun, "logl": st.logl, "teff": teff, "logg": st.logg}
             for b in self.bands:
                 cols[f"M_{b}"] = mags[b]
                 cols[f"R_{b}"] = extinction_ratio(b, teff, self.rv, self.law)
@@ -113,16 +109,22 @@ class StarSampler:
             u = cw - 0.5 * np.diff(np.concatenate([[0.0], cw]))      # inside each component's quantile range
         else:
             u = (np.arange(_N_U) + 0.5) / _N_U
-        m, lost = pop.hb_masses(sub, u)
-        z = zahb_state(np.maximum(m, mc + MENV_MIN_MSUN), np.full_like(m, mc), sub.mh, sub.helium_excess)
-        t = (hbe.hb_lifetime_myr(mc, z.logteff, sub.helium_excess) if ph == "hb"
-             else hbe.agb_lifetime_myr(mc, z.logteff, sub.helium_excess))
-        t = np.where(lost, 0.0, t)
+        # masses, ZAHB states and lifetimes exactly as Population.sample sees them; lost envelopes weigh 0
+        res, keep = pop._hb_set(0, sub, u, None, np.ones(u.size))
+        if res is None:
+            return None
+        m_k, _mc, z, t_hb, t_agb, _w = res
+        t = np.zeros(u.size)
+        t[keep] = t_hb if ph == "hb" else t_agb
+        m = np.full(u.size, mc + MENV_MIN_MSUN)
+        m[keep] = m_k
+        l0, t0 = np.zeros(u.size), np.zeros(u.size)
+        l0[keep], t0[keep] = z.logl, z.logteff
         if discrete:
             prob = np.diff(np.concatenate([[0.0], cw])) * t
             if prob.sum() <= 0:
                 return None
-            return ("discrete", np.cumsum(prob) / prob.sum(), m, z.logl, z.logteff)
+            return ("discrete", np.cumsum(prob) / prob.sum(), m, l0, t0)
         if t.sum() <= 0:
             return None
         # CDF over the quantile cells, inverted on equally spaced p nodes
@@ -131,7 +133,7 @@ class StarSampler:
         rising = np.concatenate([[True], np.diff(cdf) > 0])
         p = np.linspace(0.0, 1.0, N_MASS_NODES)
         u_p = np.clip(np.interp(p, cdf[rising], edges[rising]), 0.5 / _N_U, 1 - 0.5 / _N_U)
-        m_p, lost_p = pop.hb_masses(sub, u_p)
+        m_p, _lost = pop.hb_masses(sub, u_p)
         m_p = np.maximum(m_p, mc + MENV_MIN_MSUN)
         zp = zahb_state(m_p, np.full_like(m_p, mc), sub.mh, sub.helium_excess)
         return ("table", _Uniform(0.0, 1.0, N_MASS_NODES,
@@ -139,26 +141,8 @@ class StarSampler:
 
     # ------------------------------------------------------------------ counts
     def counts(self, n_hb, rng, rgb_logl_range=None):
-        """Star counts per (sub-population, phase), as :meth:`Population.sample` draws them.
-
-        Returns a list of ``(sub_index, phase, n, (v_lo, v_hi))``."""
-        pop = self.population
-        rates = self._rates
-        tot_hb = rates["hb"].sum()
-        if tot_hb <= 0:
-            raise ValueError("no star of this population reaches the HB (all envelopes lost on the RGB)")
-        out = []
-        for i, sub in enumerate(pop.subpopulations):
-            for ph in PHASES:
-                mean = rates[ph][i] / tot_hb * n_hb
-                win = (0.0, 1.0)
-                if ph == "rgb":
-                    win = pop._rgb_time_window(sub, rgb_logl_range)
-                    mean *= win[1] - win[0]
-                n = int(np.floor(mean)) + int(rng.random() < mean % 1)
-                if n > 0 and (ph == "rgb" or self._tables[i].mass[ph] is not None):
-                    out.append((i, ph, n, win))
-        return out
+        """Star counts per (sub-population, phase): :meth:`Population.phase_counts`."""
+        return self.population.phase_counts(n_hb, rng, PHASES, rgb_logl_range, rates=self._rates)
 
     # ------------------------------------------------------------------ draws
     def draw(self, n_hb, rng: np.random.Generator, *, rgb_logl_range=None, distance_modulus=0.0, ebv=None):
@@ -183,12 +167,10 @@ class StarSampler:
         names += ([f"M_{b}" for b in self.bands] + [f"R_{b}" for b in self.bands] if per_star
                   else [f"{b}_true" for b in self.bands])
         out = {k: np.empty(n) for k in names}
-        out["phase"] = np.empty(n, np.int8)
-        out["sub"] = np.empty(n, np.int16)
+        sizes = [b[2] for b in blocks]
+        out["phase"] = np.repeat(np.array([PHASE_CODES[b[1]] for b in blocks], np.int8), sizes)
+        out["sub"] = np.repeat(np.array([b[0] for b in blocks], np.int16), sizes)
         out["rr_mode"] = np.zeros(n, np.int8)
-        out["phase"][...] = np.repeat(np.array([PHASE_CODES[b[1]] for b in blocks], np.int8),
-                                      [b[2] for b in blocks])
-        out["sub"][...] = np.repeat(np.array([b[0] for b in blocks], np.int16), [b[2] for b in blocks])
         a = 0
         for i, ph, k, win in blocks:
             # cache-sized chunks: every temporary of the look-ups stays in cache
@@ -249,12 +231,7 @@ class StarSampler:
         out["mass"][...] = mass
         out["logl"][...] = logl
         np.power(10.0, logt, out=out["teff"])
-        logg = out["logg"]
-        np.subtract(logt, _LOG_TSUN, out=logg)
-        logg *= 4.0
-        logg += log_mass
-        logg -= logl
-        logg += LOG_G_SUN
+        logg = log_g_from_logs(log_mass, logl, logt, out=out["logg"])
         if ph == "hb":
             mode = pulsation_mode(logt, logl, mass)
             out["rr_mode"][...] = mode
@@ -273,7 +250,3 @@ class StarSampler:
                 r *= ebv
                 r += dm
                 np.add(mags[b], r, out=out[f"{b}_true"])
-
-    def is_rr(self, draws):
-        """Boolean RR Lyrae flag of a :meth:`draw` result."""
-        return draws["rr_mode"] != MODE_NONE

@@ -4,6 +4,9 @@ The mock catalogues draw stars from tables; these tests hold the tables to the p
 (photometry to 2e-4 mag, RGB positions to 1e-3 mag) and the draws to the reference sampler
 ``Population.sample`` in distribution (two-sample Kolmogorov-Smirnov tests, scipy.stats.ks_2samp) and in
 counts per phase (lifetime proportions: the fuel-consumption theorem, Renzini & Buzzoni 1986).
+These are consistency checks of a fast path against the project's own reference; the physics itself is
+checked against the literature in tests/test_validation.py.  The extinction ratios of the clump are also
+compared with the usual A_V/E(B-V) ~ 3.1 and A_Ks/A_V ~ 0.11 (common practice).
 """
 import numpy as np
 import pytest
