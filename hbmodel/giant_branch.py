@@ -18,11 +18,10 @@ Relations (each cites its source; coefficients in ``tables/``):
 """
 from __future__ import annotations
 
-import functools
 
 import numpy as np
 
-from ._tables import pchip_rows, read_table
+from ._tables import pchip_rows, read_table, table_cache
 from ._validate import as_float_array, check_range
 
 __all__ = [
@@ -45,7 +44,7 @@ YEAR_S = 3.15576e7
 LOG_G_SUN = 4.438
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def constants() -> dict:
     t = read_table("giant_branch_constants.csv")
     return {k: float(v[0]) for k, v in t.items()}

@@ -17,18 +17,17 @@ where the stars linger, and somewhat beyond.
 """
 from __future__ import annotations
 
-import functools
 
 import numpy as np
 
-from ._tables import read_table
+from ._tables import read_table, table_cache
 from ._validate import check_range
 from .giant_branch import agb_logteff
 
 __all__ = ["hb_lifetime_myr", "class_weights", "hb_track", "agb_track", "agb_lifetime_myr", "reaches_agb"]
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def _c() -> dict:
     return {k: float(v[0]) for k, v in read_table("hb_evolution.csv").items()}
 

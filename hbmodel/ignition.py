@@ -13,18 +13,17 @@ M_HeF) and ``tables/ignition.csv`` (shape of the transition).
 """
 from __future__ import annotations
 
-import functools
 
 import numpy as np
 
-from ._tables import read_table
+from ._tables import read_table, table_cache
 from ._validate import check_range
 from .giant_branch import MH_RANGE, constants as gb_constants, mh_interp
 
 __all__ = ["transition_mass_msun", "ignition_core_mass_msun", "is_degenerate_ignition"]
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def _c() -> dict:
     return {k: float(v[0]) for k, v in read_table("ignition.csv").items()}
 

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .imf import imf_number_density
-from .population import Population, StarSet
+from .population import Population
 
 __all__ = ["ObservationSpec", "make_mock", "star_sampler", "expected_hb_count", "imf_number_density"]
 

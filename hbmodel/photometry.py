@@ -51,14 +51,13 @@ gravity or metallicity term (except through U); Flower's BC_V has no [Fe/H] term
 from __future__ import annotations
 
 import csv
-import functools
 import io
 from dataclasses import dataclass
 
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 
-from ._tables import _text, read_table
+from ._tables import _text, read_table, table_cache
 from ._validate import as_float_array, check_range
 from .composition import FEH_RANGE
 
@@ -93,7 +92,7 @@ class Band:
     colour_source: str
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def _registry() -> dict[str, Band]:
     text = _text("bands.csv")
     rows = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
@@ -173,7 +172,7 @@ class _Uniform:
         return out
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def _feh_relations():
     t = read_table("colour_feh_relations.csv")
     rows = []
@@ -215,7 +214,7 @@ def _uv_excess(feh):
 _TRACK_TABLES = ("colour_teff_dwarf.csv", "colour_teff_giant.csv")
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def _engine():
     """Precomputed grids: everything that depends on Teff only, on a fine log-Teff grid.
 
@@ -336,7 +335,7 @@ def colours_v(teff_k, logg, feh, only=None) -> dict[str, np.ndarray]:
     return {k: v.reshape(shape) for k, v in out.items()}
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def _gaia_coeffs():
     t = read_table("gaia_transformations.csv")
     rel = {int(r): i for i, r in enumerate(t["relation"])}

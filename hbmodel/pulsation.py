@@ -14,11 +14,10 @@ Valid for HB luminosities (log L 1.3-2.3) and masses 0.45-0.9 Msun.
 """
 from __future__ import annotations
 
-import functools
 
 import numpy as np
 
-from ._tables import read_table
+from ._tables import read_table, table_cache
 
 __all__ = ["strip_edges", "pulsation_mode", "period_days", "fundamentalised_period_days",
            "MODE_NONE", "MODE_RRAB", "MODE_RRC"]
@@ -26,7 +25,7 @@ __all__ = ["strip_edges", "pulsation_mode", "period_days", "fundamentalised_peri
 MODE_NONE, MODE_RRAB, MODE_RRC = 0, 1, 2
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def _c() -> dict:
     return {k: float(v[0]) for k, v in read_table("pulsation.csv").items()}
 
@@ -47,7 +46,7 @@ LOGL_RANGE = (1.3, 2.3)
 MASS_RANGE_MSUN = (0.45, 0.9)
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def _edge_bounds():
     """Hottest and coolest log Teff any strip edge reaches inside the RR Lyrae domain (edges are
     linear in log L and log M, so the extremes lie at the domain's corners)."""

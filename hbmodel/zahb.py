@@ -18,12 +18,11 @@ Validity: Mc 0.30-0.55 Msun, Menv 0-3.2 Msun, [M/H] -2.65...+0.75.
 """
 from __future__ import annotations
 
-import functools
 from dataclasses import dataclass
 
 import numpy as np
 
-from ._tables import pchip_rows, read_table
+from ._tables import pchip_rows, read_table, table_cache
 from ._validate import as_float_array, check_range
 from .giant_branch import MH_RANGE, log_g, radius_rsun
 
@@ -33,7 +32,7 @@ __all__ = ["ZAHBState", "zahb_state", "zahb_logl", "zahb_logteff", "envelope_for
 MENV_MIN_MSUN = 0.002
 
 
-@functools.lru_cache(maxsize=None)
+@table_cache
 def _lum() -> dict:
     return {k: float(v[0]) for k, v in read_table("zahb_luminosity.csv").items()}
 
