@@ -27,7 +27,8 @@ from ._validate import as_float_array, check_range
 __all__ = [
     "MH_RANGE", "AGE_RANGE_GYR", "tip_age_gyr", "tip_mass_msun", "ms_lifetime_gyr",
     "rgb_tip_logl", "cml_log_d", "rgb_logl_from_core", "rgb_core_from_logl", "core_growth_time_myr",
-    "core_from_time", "rgb_logteff", "agb_logteff", "radius_rsun", "log_g", "log_g_from_logs", "bump_logl", "constants",
+    "core_from_time", "rgb_logteff", "agb_logteff", "clip_blue_of_rgb", "radius_rsun", "log_g", "log_g_from_logs", "bump_logl", "bump_pause_myr",
+    "rgb_duration_myr", "rgb_state_from_time", "rgb_time_at_logl", "constants",
     "mh_interp", "L_SUN_ERG_S", "M_SUN_G", "YEAR_S", "LOG_G_SUN",
 ]
 
@@ -202,6 +203,17 @@ def agb_logteff(logl, mh, mass_msun=1.0, helium_excess=0.0):
     return rgb_logteff(logl, mh, mass_msun, helium_excess) + constants()["agb_dlogt"]
 
 
+def clip_blue_of_rgb(logl, logteff, mh, rgb_mass_msun, helium_excess=0.0):
+    """``log Teff`` limited to the AGB locus (:func:`agb_logteff`) at the star's luminosity.
+
+    Core-helium burners that evolve redward at the end of the HB (red clump, red HB) approach the AGB,
+    which lies on the blue side of the RGB of the same population at the same luminosity; they never
+    cross the RGB (common practice; e.g. Sweigart 1987, ApJS 65, 95 tracks).  ``rgb_mass_msun`` is the
+    mass of the population's RGB stars (the RGB-tip mass)."""
+    lim = agb_logteff(np.clip(logl, 0.3, 3.7), mh, rgb_mass_msun, helium_excess)
+    return np.maximum(logteff, lim)
+
+
 def radius_rsun(logl, logteff):
     """Stefan-Boltzmann radius in Rsun with the IAU 2015 nominal Teff_sun = 5772 K."""
     return 10.0 ** (0.5 * np.asarray(logl, float) - 2.0 * (np.asarray(logteff, float) - np.log10(5772.0)))
@@ -225,9 +237,94 @@ def log_g_from_logs(log_mass, logl, logteff, out=None):
 
 
 def bump_logl(mh, age_gyr):
-    """log10 L of the RGB bump: tabulated at 12 Gyr (``giant_branch.csv``; consistent with Ferraro et al.
-    1999, AJ 118, 1738), brighter in younger populations by ``bump_dlogl_dlogage`` per dex of age
-    (from memory of published models)."""
+    """log10 L/Lsun of the RGB bump (the peak of its luminosity-function excess).
+
+    A smooth function of [M/H] and age, ``log L = l0 + l1 x + l2 x^2 + a log10(age/12 Gyr)`` with
+    ``x = [M/H]`` (coefficients ``bump_l0, bump_l1, bump_l2, bump_dlogl_dlogage`` in
+    ``tables/giant_branch_constants.csv``).  Calibrated on the bump--ZAHB offset of Galactic globular
+    clusters, Delta V = 0.87 [M/H] + 0.98 (Ferraro et al. 1999, AJ 118, 1738; coefficients from
+    memory, see the table header) at [M/H] = -2.0 and -1.0, and on the Galactic-bulge bump 0.71 mag
+    below the red clump in I (Nataf et al. 2011, ApJ 730, 118, arXiv:1011.4293, abstract) at [M/H] = 0, 10 Gyr.
+    Younger populations have brighter bumps (``bump_dlogl_dlogage``, from memory of published models).
+    """
     c = constants()
     age = check_range(age_gyr, "age (Gyr)", *AGE_RANGE_GYR)
-    return mh_interp("giant_branch.csv", "logl_bump12", mh) + c["bump_dlogl_dlogage"] * np.log10(age / 12.0)
+    x = check_range(mh, "[M/H]", *MH_RANGE)
+    return (c["bump_l0"] + x * (c["bump_l1"] + c["bump_l2"] * x)
+            + c["bump_dlogl_dlogage"] * np.log10(age / 12.0))
+
+
+def bump_pause_myr(mh, age_gyr, x_env):
+    """Extra time (Myr) an RGB star spends at the bump.
+
+    When the hydrogen-burning shell reaches the composition discontinuity left by the first dredge-up,
+    the luminosity drops by ``bump_dlogl`` and climbs back: the star crosses that luminosity interval
+    three times and lingers there (Thomas 1967; Iben 1968; e.g. Salaris & Cassisi 2005, textbook).
+    The pause is ``bump_ew_dex`` times ``dt/dlogL`` of the RGB at the bump luminosity (an equivalent
+    width in log L of the luminosity-function excess), calibrated so that a bulge-like population
+    ([Fe/H] = 0, 10 Gyr) has N_bump / N_clump = 0.20 (Nataf et al. 2013, ApJ 769, 88; see the table).
+    """
+    c = constants()
+    p = c["cml_exponent"]
+    mc = rgb_core_from_logl(bump_logl(mh, age_gyr), mh)
+    # t = coef (mc0^(1-p) - mc^(1-p))  ->  dt/dlogL = coef (p-1) mc^(1-p) ln10 / p
+    dt_dlogl = _growth_coefficient(mh, x_env) * (p - 1.0) * mc ** (1.0 - p) * np.log(10.0) / p
+    return c["bump_ew_dex"] * dt_dlogl
+
+
+def _bump_geometry(mc_lo, mc_tip, mh, age_gyr, x_env):
+    """(lb, d, mc_b, t_b, t_pause) of one RGB: bump LF peak, drop, core mass and growth time at the
+    discontinuity, and the pause (0 when the bump lies outside the RGB stretch mc_lo...mc_tip)."""
+    c = constants()
+    lb = float(bump_logl(mh, age_gyr))
+    d = c["bump_dlogl"]
+    mc_b = float(rgb_core_from_logl(lb + 0.5 * d, mh))
+    if not (mc_lo < mc_b < mc_tip):
+        return lb, d, mc_b, 0.0, 0.0
+    t_b = float(core_growth_time_myr(mc_lo, mc_b, mh, x_env))
+    return lb, d, mc_b, t_b, float(bump_pause_myr(mh, age_gyr, x_env))
+
+
+def rgb_duration_myr(mc_lo, mc_tip, mh, age_gyr, x_env):
+    """RGB time (Myr) from core mass ``mc_lo`` to the flash at ``mc_tip``: core growth plus the bump pause."""
+    if mc_tip <= mc_lo:
+        return 0.0
+    t_p = _bump_geometry(mc_lo, mc_tip, mh, age_gyr, x_env)[4]
+    return float(core_growth_time_myr(mc_lo, mc_tip, mh, x_env)) + t_p
+
+
+def rgb_state_from_time(t_myr, mc_lo, mc_tip, mh, age_gyr, x_env):
+    """Core mass and log L of an RGB star ``t_myr`` after it had core mass ``mc_lo``, with the bump.
+
+    Before the discontinuity: core growth on the Mc--L relation.  At it (core mass ``mc_b``, log L
+    ``lb + d/2``) the star pauses for :func:`bump_pause_myr`: log L drops quickly (``bump_drop_frac``
+    of the pause) by ``d = bump_dlogl`` and climbs back slowly, so the pause fills log L
+    ``lb +- d/2`` and the luminosity function has its excess at ``lb``.  Then growth resumes.
+    """
+    t = np.asarray(t_myr, float)
+    lb, d, mc_b, t_b, t_p = _bump_geometry(mc_lo, mc_tip, mh, age_gyr, x_env)
+    if t_p <= 0:
+        mc = core_from_time(mc_lo, t, mh, x_env)
+        return mc, rgb_logl_from_core(np.clip(mc, 0.1, 0.7), mh)
+    after = t >= t_b + t_p
+    pause = (t >= t_b) & ~after
+    mc = core_from_time(mc_lo, np.where(after, t - t_p, np.minimum(t, t_b)), mh, x_env)
+    logl = rgb_logl_from_core(np.clip(mc, 0.1, 0.7), mh)
+    if np.any(pause):
+        fd = constants()["bump_drop_frac"]
+        f = (t[pause] - t_b) / t_p
+        depth = np.where(f < fd, f / fd, (1.0 - f) / (1.0 - fd))
+        logl = np.array(logl, float, copy=True)
+        logl[pause] = lb + 0.5 * d - d * depth
+        mc = np.array(mc, float, copy=True)
+        mc[pause] = mc_b
+    return mc, logl
+
+
+def rgb_time_at_logl(logl, mc_lo, mc_tip, mh, age_gyr, x_env):
+    """Earliest RGB time (Myr after core mass ``mc_lo``) at which log L first reaches ``logl``;
+    luminosities above the bump include its pause.  Clipped to the RGB stretch."""
+    lb, d, mc_b, t_b, t_p = _bump_geometry(mc_lo, mc_tip, mh, age_gyr, x_env)
+    mc = np.clip(rgb_core_from_logl(np.clip(np.asarray(logl, float), -0.5, 3.7), mh), mc_lo, mc_tip)
+    t = core_growth_time_myr(mc_lo, mc, mh, x_env)
+    return t + np.where(mc > mc_b, t_p, 0.0)

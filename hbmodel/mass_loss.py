@@ -23,8 +23,8 @@ import numpy as np
 
 from ._tables import read_table
 from ._validate import check_range
-from .giant_branch import (L_SUN_ERG_S, M_SUN_G, YEAR_S, constants as gb_constants,
-                           radius_rsun, rgb_core_from_logl, rgb_logl_from_core, rgb_logteff)
+from .giant_branch import (L_SUN_ERG_S, M_SUN_G, YEAR_S, cml_log_d, constants as gb_constants,
+                           radius_rsun, rgb_core_from_logl, rgb_logteff)
 
 __all__ = ["LAWS", "integrate_rgb_mass_loss", "mass_loss_from_eta", "eta_from_mass_loss", "ETA_RANGE"]
 
@@ -81,9 +81,12 @@ def integrate_rgb_mass_loss(eta, m_init_msun, mc_ign_msun, mh, *, helium_excess=
     mc0 = np.minimum(mc0, 0.999 * mc_ign)
     k = L_SUN_ERG_S * YEAR_S / (c["e_h_erg_g"] * M_SUN_G)  # dMc/dt = k L / X
 
+    # L = D Mc^p (rgb_logl_from_core) with log D evaluated once: [M/H] is fixed along the integration
+    log_d, p_cml = float(cml_log_d(mh)), c["cml_exponent"]
+
     def rhs(lnmc, m):
         mc = np.exp(lnmc)
-        logl = rgb_logl_from_core(np.clip(mc, 0.1, 0.7), mh)
+        logl = log_d + p_cml * np.log10(np.clip(mc, 0.1, 0.7))
         logt = rgb_logteff(np.clip(logl, 0.3, 3.7), mh, np.maximum(m, 0.1), helium_excess)
         r = radius_rsun(logl, logt)
         mm = np.maximum(m, mc)
@@ -114,11 +117,28 @@ def integrate_rgb_mass_loss(eta, m_init_msun, mc_ign_msun, mh, *, helium_excess=
     return m, lost
 
 
+#: tables the RGB mass-loss integration depends on (the cache below is keyed by their texts)
+_INPUT_TABLES = ("giant_branch.csv", "giant_branch_constants.csv", "mass_loss_laws.csv")
+
+
 def _eta_grid(m_init, mc_ign, mh, helium_excess, x_env, law, eta_max):
+    from ._tables import table_text
+    key = tuple(hash(table_text(n)) for n in _INPUT_TABLES)
+    return _eta_grid_cached(float(m_init), float(mc_ign), float(mh), float(helium_excess), float(x_env), law,
+                            float(eta_max), key)
+
+
+@functools.lru_cache(maxsize=4096)
+def _eta_grid_cached(m_init, mc_ign, mh, helium_excess, x_env, law, eta_max, key):
+    """One integration per (initial mass, core mass, composition, law, eta range, input tables): the
+    results are read-only arrays, so sharing them between populations is safe."""
     etas = np.linspace(0.0, eta_max, 241)
     mf, lost = integrate_rgb_mass_loss(etas, m_init, mc_ign, mh, helium_excess=helium_excess,
                                        x_env=x_env, law=law)
-    return etas, m_init - mf, lost
+    out = (etas, m_init - mf, lost)
+    for a in out:
+        a.setflags(write=False)
+    return out
 
 
 def mass_loss_from_eta(eta, m_init_msun, mc_ign_msun, mh, *, helium_excess=0.0, x_env=0.7, law="reimers"):

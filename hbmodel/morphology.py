@@ -152,6 +152,11 @@ def predict_summary(pop, bands=None) -> dict:
         out["zahb_mv_rr"] = None
         n_rgb = st.weight[rgb][st.logl[rgb] > lz].sum()
     out["r_parameter"] = float(w_hb.sum() / n_rgb) if n_rgb > 0 else None
+    # RGB bump: magnitude of the pause luminosity and its star count (the pause time of
+    # giant_branch.bump_pause_myr is the luminosity-function excess over the smooth RGB)
+    bump = _bump_summary(pop, tuple(bands or ALL_BANDS) if photometry else None)
+    pause_weight = bump.pop("bump_pause_weight")
+    out.update(bump)
     # clump / red HB statistics
     cls = hb_classes(st.select(hb))
     red = np.zeros(len(st), bool)
@@ -166,8 +171,39 @@ def predict_summary(pop, bands=None) -> dict:
             out["clump_absmag"] = {b: weighted_quantile(mags[b], wr, 0.5) for b in bands}
             out["clump_absmag_spread"] = {b: 0.5 * (weighted_quantile(mags[b], wr, 0.84)
                                                     - weighted_quantile(mags[b], wr, 0.16)) for b in bands}
+        out["bump_to_clump_ratio"] = float(pause_weight / st.weight[red].sum()) if pause_weight else None
     else:
         out["clump_teff"] = None
         out["clump_logl"] = None
         out["clump_absmag"] = None
+    return out
+
+
+def _bump_summary(pop, bands):
+    """RGB-bump luminosity, magnitudes (pause-time weighted over sub-populations) and pause weight."""
+    from .giant_branch import bump_logl, bump_pause_myr, log_g, rgb_logteff
+    w, ll, lt, mm, fe = [], [], [], [], []
+    for s in pop.subpopulations:
+        try:
+            lb = float(bump_logl(s.mh, s.age_gyr))
+            tp = float(bump_pause_myr(s.mh, s.age_gyr, s.composition.x))
+        except ValueError:
+            continue
+        if not (np.isfinite(lb) and tp > 0 and s.mc_rgb_lo_msun < s.core_mass_msun):
+            continue
+        w.append(s.weight * tp)
+        ll.append(lb)
+        lt.append(float(rgb_logteff(lb, s.mh, s.tip_mass_msun, s.helium_excess)))
+        mm.append(s.tip_mass_msun)
+        fe.append(s.composition.feh)
+    if not w:
+        return {"bump_logl": None, "bump_absmag": None, "bump_pause_weight": 0.0}
+    w, ll, lt, mm, fe = (np.asarray(a, float) for a in (w, ll, lt, mm, fe))
+    out = {"bump_logl": float(np.sum(w * ll) / w.sum()), "bump_pause_weight": float(w.sum())}
+    if bands:
+        from .photometry import absolute_magnitudes
+        mags = absolute_magnitudes(10 ** lt, log_g(mm, ll, lt), fe, ll, tuple(bands))
+        out["bump_absmag"] = {b: weighted_quantile(mags[b], w, 0.5) for b in bands}
+    else:
+        out["bump_absmag"] = None
     return out

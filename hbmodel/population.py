@@ -196,7 +196,12 @@ class StarSet:
         m = np.full(len(self), MODE_NONE, np.int8)
         hb = self.phase == "hb"
         if hb.any():
-            m[hb] = pulsation_mode(self.logteff[hb], self.logl[hb], self.mass_msun[hb])
+            # direction of evolution on the track sets the mode in the either-or zone (hysteresis)
+            t0, tau, logl = self.zahb_logteff[hb], self.tau[hb], self.logl[hb]
+            known = np.isfinite(t0) & np.isfinite(tau)
+            dl = hbe.hb_track(1.65, np.where(known, np.clip(t0, 3.55, 4.70), 3.8), np.where(known, tau, 0.0))[0] - 1.65
+            track = (np.where(known, logl - dl, np.nan), t0, tau) if known.all() else None
+            m[hb] = pulsation_mode(self.logteff[hb], logl, self.mass_msun[hb], track)
         return m
 
     @property
@@ -327,7 +332,8 @@ class Population:
                 mc = float(ignition_core_mass_msun(m_tip, mh, y_arg))
                 dy_std = comp.y - comp.y_standard
                 mc_lo = float(gb.rgb_core_from_logl(self.logl_rgb_min, mh))
-                t_rgb = float(gb.core_growth_time_myr(mc_lo, mc, mh, comp.x)) if mc > mc_lo else 0.0
+                # RGB time: core growth plus the pause at the bump (giant_branch.rgb_duration_myr)
+                t_rgb = gb.rgb_duration_myr(mc_lo, mc, mh, c.age_gyr, comp.x)
                 subs.append(SubPopulation(comp, c.age_gyr, c.weight / wsum * frac, m_tip, mc, dy_std,
                                           mc_lo, t_rgb))
         return tuple(subs)
@@ -413,6 +419,8 @@ class Population:
                 tt = np.tile(tau, m.size)
                 l0, t0 = np.repeat(z.logl, n_tau), np.repeat(z.logteff, n_tau)
                 logl, logt = hbe.hb_track(l0, t0, tt)
+                # the redward end of the HB never crosses the RGB (it joins the AGB, bluer than the RGB)
+                logt = gb.clip_blue_of_rgb(logl, logt, sub.mh, sub.tip_mass_msun, sub.helium_excess)
                 w = np.repeat(w_m * t_hb / n_tau, n_tau) * sub.weight
                 sets.append(self._mk("hb", i, sub, mm, logl, logt, w, t0, tt))
             if "agb" in phases and np.any(t_agb > 0):
@@ -420,7 +428,7 @@ class Population:
                 mm = np.repeat(m[ok], n_agb)
                 ss = np.tile(s, ok.sum())
                 l0, t0 = np.repeat(z.logl[ok], n_agb), np.repeat(z.logteff[ok], n_agb)
-                logl, logt = hbe.agb_track(l0, t0, ss, mm, sub.mh, sub.helium_excess)
+                logl, logt = hbe.agb_track(l0, t0, ss, mm, sub.mh, sub.helium_excess, sub.tip_mass_msun)
                 w = np.repeat(w_m[ok] * t_agb[ok] / n_agb, n_agb) * sub.weight
                 sets.append(self._mk("agb", i, sub, mm, logl, logt, w, t0, ss))
         return StarSet.concatenate(sets)
@@ -436,21 +444,10 @@ class Population:
         """RGB stars at fractional RGB ages ``v`` (uniform in time), with the RGB bump."""
         if sub.t_rgb_myr <= 0:
             return None
-        c = gb.constants()
         mh, x = sub.mh, sub.composition.x
-        mc = gb.core_from_time(sub.mc_rgb_lo_msun, v * sub.t_rgb_myr, mh, x)
-        logl = gb.rgb_logl_from_core(np.clip(mc, 0.1, 0.7), mh)
-        # RGB bump: over a core-mass window the luminosity first drops by bump_dlogl, then climbs back
-        lb = float(gb.bump_logl(mh, sub.age_gyr))
-        d = c["bump_dlogl"]
-        mc_b = float(gb.rgb_core_from_logl(lb, mh))
-        mc_e = float(gb.rgb_core_from_logl(lb + d, mh))
-        inb = (mc > mc_b) & (mc < mc_e)
-        if inb.any():
-            f = (mc[inb] - mc_b) / (mc_e - mc_b)
-            drop = np.where(f < 0.25, lb - d * f / 0.25, lb - d + 2 * d * (f - 0.25) / 0.75)
-            logl = logl.copy()
-            logl[inb] = drop
+        # core growth with the pause at the bump (the star lingers there: giant_branch.rgb_state_from_time)
+        mc, logl = gb.rgb_state_from_time(np.asarray(v, float) * sub.t_rgb_myr, sub.mc_rgb_lo_msun,
+                                          sub.core_mass_msun, mh, sub.age_gyr, x)
         # mass along the RGB: linear in core growth between initial mass and the HB mass (mean loss)
         dm = self.mean_mass_loss(sub, n=128)
         frac = np.clip((mc - sub.mc_rgb_lo_msun) / (sub.core_mass_msun - sub.mc_rgb_lo_msun), 0, 1) ** 6
@@ -511,9 +508,8 @@ class Population:
             return 0.0, 1.0
         lo, hi = (float(x) for x in logl_range)
         d = gb.constants()["bump_dlogl"]
-        mc = gb.rgb_core_from_logl(np.clip(np.array([lo - d, hi + d]), -0.5, 3.7), sub.mh)
-        mc = np.clip(mc, sub.mc_rgb_lo_msun, sub.core_mass_msun)
-        t = gb.core_growth_time_myr(sub.mc_rgb_lo_msun, mc, sub.mh, sub.composition.x) / sub.t_rgb_myr
+        t = gb.rgb_time_at_logl(np.array([lo - d, hi + d]), sub.mc_rgb_lo_msun, sub.core_mass_msun, sub.mh,
+                                sub.age_gyr, sub.composition.x) / sub.t_rgb_myr
         return float(np.clip(t[0], 0, 1)), float(np.clip(t[1], 0, 1))
 
     def _sample_hb_agb(self, i, sub, ph, n, rng):
@@ -540,8 +536,10 @@ class Population:
         ph_t = rng.random(m.size)
         if ph == "hb":
             logl, logt = hbe.hb_track(l0, t0, ph_t)
+            # the redward end of the HB never crosses the RGB (it joins the AGB, bluer than the RGB)
+            logt = gb.clip_blue_of_rgb(logl, logt, sub.mh, sub.tip_mass_msun, sub.helium_excess)
         else:
-            logl, logt = hbe.agb_track(l0, t0, ph_t, m, sub.mh, sub.helium_excess)
+            logl, logt = hbe.agb_track(l0, t0, ph_t, m, sub.mh, sub.helium_excess, sub.tip_mass_msun)
         return self._mk(ph, i, sub, m, logl, logt, np.ones(m.size), t0, ph_t)
 
     def _tmax(self, sub, ph):

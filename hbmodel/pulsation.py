@@ -1,11 +1,13 @@
 """RR Lyrae pulsation: instability strip, mode assignment and periods.
 
-* Strip edges linear in log L and log M (from memory of the pulsation models of
-  Marconi et al. 2015, ApJ 808, 50): first-overtone blue edge (hot limit) and
-  fundamental red edge (cool limit); inside the "either-or" zone the mode is
-  assigned by which side of a dividing line the star lies (a weighted mean of
-  the two inner edges, ``split_w``; a hysteresis-free choice calibrated so that
-  Oosterhoff I-like populations have ~20-30% RRc, common practice).
+* Strip edges linear in log L and log M (outer edges and slopes from memory of the
+  pulsation models of Marconi et al. 2015, ApJ 808, 50; the zero points of the
+  inner edges FBE / FORE fitted so that the first-overtone-only zone is ~1/4 of the
+  strip, from the RRc fractions of Oosterhoff I / II clusters, see
+  ``tables/pulsation.csv``): first-overtone blue edge (hot limit) and fundamental
+  red edge (cool limit); inside the "either-or" zone the mode follows the star's
+  track history (hysteresis, :func:`pulsation_mode`; Bono et al. 1997, A&AS 121,
+  327; Castellani, Caputo & Castellani 2003, arXiv:astro-ph/0308435).
 * Periods: van Albada & Baker 1971, ApJ 169, 311:
   ``log P_F = 11.497 + 0.84 log L - 0.68 log M - 3.48 log Teff`` (days);
   first-overtone periods ``log P_1 = log P_F - 0.127``; fundamentalised
@@ -56,8 +58,24 @@ def _edge_bounds():
     return float(e.min()) - 1e-9, float(e.max()) + 1e-9
 
 
-def pulsation_mode(logteff, logl, mass_msun):
+def pulsation_mode(logteff, logl, mass_msun, track=None, n_history=16):
     """0 outside the strip, 1 for fundamental (RRab), 2 for first overtone (RRc).
+
+    Between the first-overtone blue edge and the fundamental blue edge (FBE) stars are RRc; between
+    the first-overtone red edge (FORE) and the fundamental red edge RRab.  In the either-or zone
+    between the FBE and the FORE both modes are stable and a star keeps the mode it brought in
+    (hysteresis; van Albada & Baker 1973, ApJ 185, 477; Bono, Caputo & Stellingwerf 1994, ApJ 423,
+    294: the RRab/RRc transition lies near the FBE in Oosterhoff I and near the FORE in Oosterhoff II
+    clusters; Szabo, Kollath & Buchler 2004, A&A 425, 627: the mode in this region depends on the
+    direction of the evolutionary track).  With ``track = (zahb_logl, zahb_logteff, tau)`` the HB
+    track (:func:`hbmodel.hb_evolution.hb_track`) is followed back from the ZAHB (``n_history``
+    steps): a star in the zone is RRc if it was hotter than the FBE earlier on its track (it entered
+    from the blue, e.g. a blue-HB star evolving redward, or a red-HB star whose blueward loop took it
+    past the FBE and which is now returning), and RRab otherwise (it arrived on the ZAHB from the red,
+    after the helium flash, and never left the zone blueward).  Tracks are monotonic in log Teff
+    or single-looped, so "hotter than the FBE at some earlier point" equals "last outside the zone
+    on its blue side".  Without ``track`` the zone is split at a fixed line (weight ``split_w`` of the
+    FBE; legacy, no hysteresis).
 
     Only stars in the RR Lyrae domain (log L 1.3-2.3, 0.45-0.9 Msun) are flagged: more massive
     core-helium burners crossing the strip are not RR Lyrae (anomalous/classical Cepheids), and are
@@ -76,10 +94,34 @@ def pulsation_mode(logteff, logl, mass_msun):
     logm = np.log10(mass_a.ravel()[cand])
     inside = (lt <= _edge("fobe", ll, logm=logm)) & (lt >= _edge("fre", ll, logm=logm))
     c = _c()
-    mid = c["split_w"] * _edge("fbe", ll, logm=logm) + (1 - c["split_w"]) * _edge("fore", ll, logm=logm)
+    fbe, fore = _edge("fbe", ll, logm=logm), _edge("fore", ll, logm=logm)
+    if track is None:
+        is_c = lt > c["split_w"] * fbe + (1 - c["split_w"]) * fore
+    else:
+        is_c = lt > fbe
+        zone = np.flatnonzero(inside & ~is_c & (lt >= fore))
+        if zone.size:
+            l0, t0, tau = (np.broadcast_to(np.asarray(x, float), logteff.shape).ravel()[cand][zone] for x in track)
+            is_c[zone] = _entered_from_blue(l0, t0, tau, logm[zone], n_history)
     flat = mode.reshape(-1)
-    flat[cand] = np.where(inside, np.where(lt > mid, MODE_RRC, MODE_RRAB), MODE_NONE)
+    flat[cand] = np.where(inside, np.where(is_c, MODE_RRC, MODE_RRAB), MODE_NONE)
     return mode
+
+
+def _entered_from_blue(zahb_logl, zahb_logteff, tau, logm, n_steps):
+    """True where the HB track was hotter than the fundamental blue edge at some tau' < tau.
+
+    Stars with unknown track (NaN ZAHB or tau) are treated as arriving from the red (False)."""
+    from .hb_evolution import hb_track
+    ok = np.isfinite(zahb_logl) & np.isfinite(zahb_logteff) & np.isfinite(tau)
+    out = np.zeros(tau.shape, bool)
+    if not ok.any():
+        return out
+    frac = np.arange(n_steps) / n_steps
+    tt = tau[ok, None] * frac[None, :]
+    l, t = hb_track(np.clip(zahb_logl[ok], 0.5, 2.6)[:, None], np.clip(zahb_logteff[ok], 3.55, 4.70)[:, None], tt)
+    out[ok] = np.any(t > _edge("fbe", l, logm=logm[ok, None]), axis=1)
+    return out
 
 
 def fundamentalised_period_days(logl, mass_msun, logteff):

@@ -27,7 +27,7 @@ import numpy as np
 
 from . import hb_evolution as hbe
 from .extinction import extinction_ratio
-from .giant_branch import log_g_from_logs
+from .giant_branch import clip_blue_of_rgb, log_g_from_logs
 from .photometry import FixedMetallicityPhotometry, _Uniform, get_band
 from .population import PHASES, Population
 from .pulsation import period_days, pulsation_mode
@@ -225,15 +225,17 @@ class StarSampler:
         s = rng.random(k)
         if ph == "hb":
             logl, logt = hbe.hb_track(l0, t0, s)
+            # the redward end of the HB never crosses the RGB (it joins the AGB, bluer than the RGB)
+            logt = clip_blue_of_rgb(logl, logt, sub.mh, sub.tip_mass_msun, sub.helium_excess)
         else:
-            logl, logt = hbe.agb_track(l0, t0, s, mass, sub.mh, sub.helium_excess)
+            logl, logt = hbe.agb_track(l0, t0, s, mass, sub.mh, sub.helium_excess, sub.tip_mass_msun)
         np.clip(logt, np.log10(3000.0), np.log10(50000.0), out=logt)
         out["mass"][...] = mass
         out["logl"][...] = logl
         np.power(10.0, logt, out=out["teff"])
         logg = log_g_from_logs(log_mass, logl, logt, out=out["logg"])
         if ph == "hb":
-            mode = pulsation_mode(logt, logl, mass)
+            mode = pulsation_mode(logt, logl, mass, (l0, t0, s))
             out["rr_mode"][...] = mode
             out["period_days"][...] = period_days(logl, mass, logt, mode)
         else:
