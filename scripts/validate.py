@@ -23,6 +23,10 @@ def _fmt(x, n=4):
     return "—" if not np.isfinite(x) else f"{x:.{n}g}"
 
 
+def _pull(x):
+    return "—" if not np.isfinite(x) else f"{x:+.2f}"
+
+
 def _used_by_stages():
     from hbmodel.calibration.stages import STAGES
     used = {}
@@ -48,7 +52,7 @@ def _section(scores, role, markdown):
                 note = (f"fitted by stage '{used[s.id]}'" if s.id in used else "no free coefficient fitted to it") + \
                        (f"; {s.reason}" if s.reason else "")
             lines.append(f"| `{s.id}` | {_fmt(s.model)} | {_fmt(s.value)} | {_fmt(s.sigma_total, 2)} | "
-                         f"{_fmt(s.pull, 2)} | {'yes' if s.passed else '**no**'} | {s.source} ({s.location}) | "
+                         f"{_pull(s.pull)} | {'yes' if s.passed else '**no**'} | {s.source} ({s.location}) | "
                          f"{s.obtained} | {note} |")
     else:
         lines.append(f"== {title}: {n_ok} of {len(rows)} within 2 sigma")
@@ -56,7 +60,7 @@ def _section(scores, role, markdown):
         lines.append(f"{'target':<{w}}  {'model':>10}  {'published':>10}  {'sigma':>8}  {'pull':>6}  ok   obtained         source / reason")
         for s in rows:
             lines.append(f"{s.id:<{w}}  {_fmt(s.model):>10}  {_fmt(s.value):>10}  {_fmt(s.sigma_total, 3):>8}  "
-                         f"{_fmt(s.pull, 2):>6}  {'yes' if s.passed else 'NO '}  {s.obtained:<15}  "
+                         f"{_pull(s.pull):>6}  {'yes' if s.passed else 'NO '}  {s.obtained:<15}  "
                          f"{s.source} ({s.location}){'  -- ' + s.reason if s.reason else ''}"
                          + ("" if role != "fit" else f"  [{('stage: ' + used[s.id]) if s.id in used else 'not fitted'}]"))
     return lines, n_ok, len(rows)
@@ -83,10 +87,10 @@ def _clusters(markdown, role=None):
             m = r.predicted.get(q, np.nan)
             extra = r.notes.get(q, "")
             if markdown:
-                lines.append(f"| {' | '.join(head)} | {q} | {_fmt(v)} ± {_fmt(u, 2)} | {_fmt(m)} | {_fmt(r.pull(q), 2)} {extra} |")
+                lines.append(f"| {' | '.join(head)} | {q} | {_fmt(v)} ± {_fmt(u, 2)} | {_fmt(m)} | {_pull(r.pull(q))} {extra} |")
             else:
                 lines.append(f"{head[0]:<18} {head[1]:<5} {head[2]:>6} {head[3]:>6} {head[4]:>6}  {q:<13} "
-                             f"{_fmt(v):>8} ±{_fmt(u, 2):<5} {_fmt(m):>8} {_fmt(r.pull(q), 2):>6}  {extra}")
+                             f"{_fmt(v):>8} ±{_fmt(u, 2):<5} {_fmt(m):>8} {_pull(r.pull(q)):>6}  {extra}")
     n_ok, n, names = oosterhoff_criterion(res)
     lines.append("")
     lines.append(f"clusters with >= 10 RRab whose mean RRab period is within 0.03 d and RRc fraction within 0.15 of the "

@@ -88,7 +88,11 @@ def test_classification_accuracy_and_honest_overlap():
     p = CHeBClassifier(pop, teff_err_k=80, logg_err=0.1).fit().predict_proba(teff, logg)
     ok = np.isfinite(p)
     assert ok.mean() > 0.99
-    assert np.mean((p[ok] > 0.5) == truth[ok]) > 0.85
+    # a calibrated classifier is right as often as its own probabilities say: accuracy = E[max(p, 1 - p)]
+    # (common practice for probabilistic classifiers); with 80 K / 0.1 dex errors most stars still separate
+    acc = np.mean((p[ok] > 0.5) == truth[ok])
+    assert acc == pytest.approx(np.mean(np.maximum(p[ok], 1 - p[ok])), abs=0.02)
+    assert acc > 0.8
     mid = ok & (p > 0.3) & (p < 0.7)
     assert mid.mean() > 0.05                       # overlap exists and is not forced to 0/1
     assert 0.35 < truth[mid].mean() < 0.65         # ... and is honestly intermediate
