@@ -172,6 +172,7 @@ def predict_summary(pop, bands=None) -> dict:
             out["clump_absmag_spread"] = {b: 0.5 * (weighted_quantile(mags[b], wr, 0.84)
                                                     - weighted_quantile(mags[b], wr, 0.16)) for b in bands}
         out["bump_to_clump_ratio"] = float(pause_weight / st.weight[red].sum()) if pause_weight else None
+        out.update(_agb_bump_summary(st, red, bands if photometry else None))
     else:
         out["clump_teff"] = None
         out["clump_logl"] = None
@@ -207,3 +208,25 @@ def _bump_summary(pop, bands):
     else:
         out["bump_absmag"] = None
     return out
+
+
+def _agb_bump_summary(st, red, bands):
+    """AGB bump of a population with a red HB / clump: the peak of the early-AGB luminosity function
+    (where the early AGB lingers, hb_evolution.agb_track) and its star count relative to the clump
+    (the lingering fraction ``agb_bump_frac`` of the early-AGB time).  Compared with the bulge values of
+    Nataf et al. 2011 (ApJ 730, 118, abstract) as held-out targets."""
+    from .hb_evolution import _c as hb_coefficients
+    agb = st.phase == "agb"
+    w_red = st.weight[red].sum()
+    if not agb.any() or w_red <= 0 or not bands:
+        return {"agb_bump_absmag": None, "agb_bump_to_clump_ratio": None}
+    c = hb_coefficients()
+    wa = st.weight[agb]
+    mags = st.select(agb).absolute_magnitudes(tuple(bands))
+    out = {}
+    for b in bands:
+        edges = np.arange(np.floor(mags[b].min() * 20) / 20, mags[b].max() + 0.05, 0.05)
+        h, _ = np.histogram(mags[b], edges, weights=wa)
+        k = int(np.argmax(h))
+        out[b] = float(0.5 * (edges[k] + edges[k + 1]))
+    return {"agb_bump_absmag": out, "agb_bump_to_clump_ratio": float(c["agb_bump_frac"] * wa.sum() / w_red)}
