@@ -78,7 +78,8 @@ def _clusters(markdown, role=None):
         qs = [q for q in PREDICTED_QUANTITIES if q in r.observed]
         head = (r.name, r.role, f"{r.feh:+.2f}", _fmt(hbr, 3), _fmt(r.eta, 3) + (" (sat.)" if r.saturated else ""))
         if "*" in r.notes or not qs:
-            note = r.notes.get("*", "HB ratio only (eta fitted, nothing else to compare)")
+            note = r.notes.get("*", "HB ratio only (eta fitted, nothing else to compare)" if r.kind == "GC"
+                               else "no measured RGB / clump masses to compare")
             lines.append(f"| {' | '.join(head)} | — | — | — | {note} |" if markdown else
                          f"{head[0]:<18} {head[1]:<5} {head[2]:>6} {head[3]:>6} {head[4]:>6}  {note}")
             continue

@@ -49,7 +49,7 @@ def test_cluster_benchmark_size():
     c = read_clusters()
     names = {(n, k) for n, k in zip(c["name"], c["kind"])}
     assert sum(k == "GC" for _, k in names) >= 25
-    assert sum(k == "OC" for _, k in names) >= 4
+    assert sum(k == "OC" for _, k in names) >= 5
     roles = {n: r for n, r in zip(c["name"], c["role"])}
     assert "fit" in roles.values() and "check" in roles.values()
 
