@@ -17,6 +17,7 @@ import contextlib
 import contextvars
 import functools
 import io
+import itertools
 from importlib import resources
 from types import MappingProxyType
 
@@ -26,7 +27,7 @@ __all__ = ["read_table", "table_header", "table_text", "pchip_rows", "table_cach
 
 _EMPTY = MappingProxyType({})
 _TRIAL: contextvars.ContextVar = contextvars.ContextVar("hbmodel_trial_tables", default=(0, _EMPTY))
-_GENERATION = iter(range(1, 1 << 62))  # a fresh key per trial block (itertools-like counter, thread-safe in CPython)
+_GENERATION = itertools.count(1)  # a fresh cache key per trial block
 
 
 def _shipped_text(name: str) -> str:
@@ -47,8 +48,8 @@ def table_text(name: str) -> str:
 
 
 def _key() -> int:
-    gen, trial = _TRIAL.get()
-    return gen
+    """Cache key of the active trial block (0 = the shipped tables)."""
+    return _TRIAL.get()[0]
 
 
 @contextlib.contextmanager
@@ -56,8 +57,7 @@ def trial_tables(texts: dict[str, str]):
     """Evaluate the model with the table texts ``texts`` (name -> CSV text) in place of the shipped ones.
 
     Used by the calibration only.  Nested blocks see the union (inner wins)."""
-    gen, outer = _TRIAL.get()
-    merged = dict(outer)
+    merged = dict(_TRIAL.get()[1])
     merged.update(texts)
     token = _TRIAL.set((next(_GENERATION), MappingProxyType(merged)))
     try:

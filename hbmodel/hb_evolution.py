@@ -46,6 +46,11 @@ def class_weights(zahb_logteff):
     return w_ehb, w_blue, w_red
 
 
+def agb_bump_fraction() -> float:
+    """Fraction of the early-AGB time spent at the AGB bump (``agb_bump_frac``; Gallart 1998, ApJ 495, L43)."""
+    return _c()["agb_bump_frac"]
+
+
 def hb_lifetime_myr(core_mass_msun, zahb_logteff, helium_excess=0.0):
     """Core-helium-burning lifetime (Myr): ``t0 (Mc/0.49)^mc_exp 10^(dy_exp dY) (1 + hot_boost w_hot) (1 + ehb_boost w_EHB)``.
 

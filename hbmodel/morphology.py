@@ -215,12 +215,11 @@ def _agb_bump_summary(st, red, bands):
     (where the early AGB lingers, hb_evolution.agb_track) and its star count relative to the clump
     (the lingering fraction ``agb_bump_frac`` of the early-AGB time).  Compared with the bulge values of
     Nataf et al. 2011 (ApJ 730, 118, abstract) as held-out targets."""
-    from .hb_evolution import _c as hb_coefficients
+    from .hb_evolution import agb_bump_fraction
     agb = st.phase == "agb"
     w_red = st.weight[red].sum()
     if not agb.any() or w_red <= 0 or not bands:
         return {"agb_bump_absmag": None, "agb_bump_to_clump_ratio": None}
-    c = hb_coefficients()
     wa = st.weight[agb]
     mags = st.select(agb).absolute_magnitudes(tuple(bands))
     out = {}
@@ -229,4 +228,4 @@ def _agb_bump_summary(st, red, bands):
         h, _ = np.histogram(mags[b], edges, weights=wa)
         k = int(np.argmax(h))
         out[b] = float(0.5 * (edges[k] + edges[k + 1]))
-    return {"agb_bump_absmag": out, "agb_bump_to_clump_ratio": float(c["agb_bump_frac"] * wa.sum() / w_red)}
+    return {"agb_bump_absmag": out, "agb_bump_to_clump_ratio": float(agb_bump_fraction() * wa.sum() / w_red)}

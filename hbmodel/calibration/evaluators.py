@@ -525,30 +525,35 @@ def _predict_key(pop, key, band):
     return float(v[band] if isinstance(v, dict) else v)
 
 
-def bump_minus_clump_mag(row):
+def _offset_from_clump(row, key):
+    """Magnitude of a predicted feature (``key``: the RGB or AGB bump) minus the clump's, in the row's band."""
     band = row["band"] or "I"
     pop = _population_for(row)
-    return _predict_key(pop, "bump_absmag", band) - _clump_mag(pop, band)
+    return _predict_key(pop, key, band) - _clump_mag(pop, band)
+
+
+def bump_minus_clump_mag(row):
+    return _offset_from_clump(row, "bump_absmag")
+
+
+def agb_bump_minus_clump_mag(row):
+    return _offset_from_clump(row, "agb_bump_absmag")
 
 
 def bump_to_clump_ratio(row):
     return _predict_key(_population_for(row), "bump_to_clump_ratio", row["band"] or "I")
 
 
-def bump_minus_hb_mag(row):
-    band = row["band"] or "V"
-    pop = _rr_population(_f(row, "feh", -1.5))
-    return _predict_key(pop, "bump_absmag", band) - _predict_key(pop, "zahb_mv_rr", band)
-
-
-def agb_bump_minus_clump_mag(row):
-    band = row["band"] or "I"
-    pop = _population_for(row)
-    return _predict_key(pop, "agb_bump_absmag", band) - _clump_mag(pop, band)
-
-
 def agb_bump_to_clump_ratio(row):
     return _predict_key(_population_for(row), "agb_bump_to_clump_ratio", row["band"] or "I")
+
+
+def bump_minus_hb_mag(row):
+    """V(bump) - V(ZAHB at the RR Lyrae strip), the quantity of Ferraro et al. 1999 (AJ 118, 1738)."""
+    if (row["band"] or "V") != "V":
+        raise NotModelled("the bump - HB offset is modelled in V only (the ZAHB level is a V magnitude)")
+    pop = _rr_population(_f(row, "feh", -1.5))
+    return _predict_key(pop, "bump_absmag", "V") - _predict_key(pop, "zahb_mv_rr", "V")
 
 
 EVALUATORS = {f.__name__: f for f in (

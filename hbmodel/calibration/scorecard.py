@@ -7,6 +7,7 @@ with the reason.
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -37,11 +38,15 @@ class Score:
     obtained: str
 
 
+@functools.lru_cache(maxsize=4)
+def _accuracy_table(text: str) -> dict:
+    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.startswith("#")][1:]
+    return {q: float(s) for q, s in (ln.split(",") for ln in lines)}
+
+
 def sigma_model(quantity: str) -> float:
-    lines = [ln for ln in table_text("targets/model_accuracy.csv").splitlines()
-             if ln.strip() and not ln.startswith("#")][1:]
-    table = {q: float(s) for q, s in (ln.split(",") for ln in lines)}
-    return table.get(quantity, 0.0)
+    """The surrogate's stated accuracy for ``quantity`` (``tables/targets/model_accuracy.csv``; 0 if unlisted)."""
+    return _accuracy_table(table_text("targets/model_accuracy.csv")).get(quantity, 0.0)
 
 
 def score_rows(rows) -> list[Score]:

@@ -218,6 +218,11 @@ def run_all(stages=None, *, progress=None):
 
 
 # ----------------------------------------------------------------------------- the stages
+def _scalars(table: str, bounds: dict) -> tuple[Free, ...]:
+    """Free cells of a one-row table of scalar coefficients: ``{column: (lower, upper)}``."""
+    return tuple(Free(table, col, (0,), "each", b) for col, b in bounds.items())
+
+
 # Data-flow order: giant branch -> ZAHB and clump -> RGB bump (its targets are offsets from the
 # clump and the ZAHB, so it follows them) together with the HB and early-AGB lifetimes (star counts).
 STAGES = (
@@ -225,7 +230,7 @@ STAGES = (
           ("giant_branch",), ("tip_mass_msun",),
           unconstrained=("tip_age.csv: the shape of age(mass, [M/H]) (only its overall scale is fitted)",),
           description="overall age scale of the RGB-tip ages"),
-    Stage("RGB temperature", (Free("giant_branch_constants.csv", "t0", (0,), "each", (3.55, 3.70)),),
+    Stage("RGB temperature", _scalars("giant_branch_constants.csv", {"t0": (3.55, 3.70)}),
           ("giant_branch",), ("rgb_colour_at_mag",),
           unconstrained=("giant_branch_constants.csv: t1, t2, tm0, tm1, tlogm, ty (the locus shape)",),
           description="RGB temperature level from the RGB colour at fixed M_I"),
@@ -234,11 +239,8 @@ STAGES = (
           unconstrained=("giant_branch.csv: logl_tip trend with [M/H] (only its level is fitted); m_hef_msun",),
           description="TRGB luminosity level"),
     Stage("ZAHB and clump luminosity",
-          (Free("zahb_shell.csv", "h_logl0_c0", (0,), "each", (1.0, 1.8)),
-           Free("zahb_shell.csv", "h_logl0_c1", (0,), "each", (-0.5, 0.5)),
-           Free("zahb_shell.csv", "h_logl0_c2", (0,), "each", (-0.3, 0.3)),
-           Free("zahb_shell.csv", "tilt_amp", (0,), "each", (0.0, 4.0)),
-           Free("zahb_shell.csv", "tilt_big_ratio", (0,), "each", (0.0, 1.5))),
+          _scalars("zahb_shell.csv", {"h_logl0_c0": (1.0, 1.8), "h_logl0_c1": (-0.5, 0.5), "h_logl0_c2": (-0.3, 0.3),
+                                      "tilt_amp": (0.0, 4.0), "tilt_big_ratio": (0.0, 1.5)}),
           ("zahb", "photometry", "clump"),
           ("rr_abs_mag_mean", "rr_mv_feh_slope", "clump_abs_mag", "clump_abs_mag_feh_slope", "clump_abs_mag_age_diff"),
           unconstrained=("zahb_shell.csv: tilt_mh0, tilt_width_dex, tilt_menv0_msun",
@@ -247,13 +249,9 @@ STAGES = (
                          "zahb_teff.csv: all (ZAHB temperature-envelope relation)"),
           description="hydrogen-shell normalisation (quadratic in [M/H]) and metal-rich tilt"),
     Stage("RGB bump and lifetimes",
-          (Free("giant_branch_constants.csv", "bump_l0", (0,), "each", (0.8, 2.0)),
-           Free("giant_branch_constants.csv", "bump_l1", (0,), "each", (-1.0, 0.0)),
-           Free("giant_branch_constants.csv", "bump_l2", (0,), "each", (-0.3, 0.3)),
-           Free("giant_branch_constants.csv", "bump_ew_dex", (0,), "each", (0.0, 0.3)),
-           Free("hb_evolution.csv", "t0_myr", (0,), "each", (50.0, 150.0)),
-           Free("hb_evolution.csv", "hot_boost", (0,), "each", (0.0, 1.0)),
-           Free("hb_evolution.csv", "f_agb", (0,), "each", (0.05, 0.3))),
+          _scalars("giant_branch_constants.csv", {"bump_l0": (0.8, 2.0), "bump_l1": (-1.0, 0.0),
+                                                  "bump_l2": (-0.3, 0.3), "bump_ew_dex": (0.0, 0.3)})
+          + _scalars("hb_evolution.csv", {"t0_myr": (50.0, 150.0), "hot_boost": (0.0, 1.0), "f_agb": (0.05, 0.3)}),
           ("bump", "hb_evolution", "counts"),
           ("bump_minus_hb_mag", "bump_minus_clump_mag", "bump_to_clump_ratio", "r_parameter", "agb_to_hb_ratio",
            "hb_lifetime_ratio_hot_to_rr"),

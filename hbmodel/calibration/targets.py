@@ -86,10 +86,6 @@ def _read_all() -> tuple[Table, Table]:
     if dup:
         raise TargetError(f"duplicate target id(s): {', '.join(sorted(dup))}")
     clusters = vstack(cluster_tabs) if cluster_tabs else Table(names=_CLUSTER_COLUMNS)
-    for t in (stages, clusters):
-        for c in t.colnames:
-            if hasattr(t[c], "setflags"):
-                pass
     return stages, clusters
 
 
