@@ -1,10 +1,9 @@
 """RR Lyrae pulsation: instability strip, mode assignment and periods.
 
-* Strip edges linear in log L and log M (outer edges and slopes from memory of the
-  pulsation models of Marconi et al. 2015, ApJ 808, 50; the zero points of the
-  inner edges FBE / FORE fitted so that the first-overtone-only zone is ~1/4 of the
-  strip, from the RRc fractions of Oosterhoff I / II clusters, see
-  ``tables/pulsation.csv``): first-overtone blue edge (hot limit) and fundamental
+* Strip edges linear in log L and log M (slopes from memory of the pulsation models
+  of Marconi et al. 2015, ApJ 808, 50; the zero points of all four edges fitted by the
+  calibration to Oosterhoff I / II mean periods and RRc fractions and to the 'fit'
+  clusters of the benchmark, see ``tables/pulsation.csv``): first-overtone blue edge (hot limit) and fundamental
   red edge (cool limit); inside the "either-or" zone the mode follows the star's
   track history (hysteresis, :func:`pulsation_mode`; Bono et al. 1997, A&AS 121,
   327; Castellani, Caputo & Castellani 2003, arXiv:astro-ph/0308435).

@@ -42,7 +42,7 @@ def test_stages_read_only_fit_rows():
     for st in STAGES:
         rows = st.fit_rows()
         assert len(rows) > 0, st.name
-        assert set(rows["role"]) == {"fit"}
+        assert {r["role"] for r in rows} == {"fit"}
 
 
 def test_cluster_benchmark_size():

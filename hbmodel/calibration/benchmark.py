@@ -18,9 +18,10 @@ import numpy as np
 
 from .evaluators import ETA_SPREAD_OLD, NotModelled, _Cached, eta_for_hb_ratio
 from .scorecard import sigma_model
+from .._tables import table_cache
 from .targets import read_clusters
 
-__all__ = ["ClusterResult", "run_benchmark", "oosterhoff_criterion", "PREDICTED_QUANTITIES"]
+__all__ = ["ClusterResult", "run_benchmark", "cluster_rows", "cluster_value", "oosterhoff_criterion", "PREDICTED_QUANTITIES"]
 
 _MODEL_QUANTITY = {"pab_mean": "rrab_period_mean", "pc_mean": "rrab_period_mean", "f_rrc": "rrc_fraction",
                    "dv_bump_hb": "bump_minus_hb_mag", "r_parameter": "r_parameter",
@@ -96,6 +97,43 @@ def _eta_for_delta_m(delta_m, feh, age, alpha=0.0):
     return 0.5 * (lo + hi)
 
 
+@table_cache
+def _globular(name: str):
+    """(eta, saturated, predicted, why) of globular cluster ``name`` under the active tables; raises
+    ValueError / NotModelled when it cannot be fitted (cached per trial table set)."""
+    q = _clusters()[name]["q"]
+    feh = q["feh"][0]
+    age = float(np.clip(q.get("age_gyr", (12.5,))[0], 0.5, 14.0))
+    eta, sat = eta_for_hb_ratio(q["hb_ratio"][0], feh, age_gyr=age)
+    pred, why = _gc_predictions(feh, eta, age, 0.3)
+    return eta, sat, pred, why
+
+
+def cluster_rows(role: str = "fit", quantities=("pab_mean", "pc_mean", "f_rrc")) -> list[dict]:
+    """Target rows of ``role`` globular clusters for ``quantities`` (with [Fe/H] and an HB ratio), as
+    dicts with ``id``, ``cluster``, ``quantity``, ``model_quantity``, ``value`` and ``uncertainty``.
+    Used by the calibration stage that fits the instability strip; ``check`` clusters are never fitted."""
+    out = []
+    for name, d in _clusters().items():
+        q = d["q"]
+        if d["kind"] != "GC" or d["role"] != role or "feh" not in q or "hb_ratio" not in q:
+            continue
+        for k in quantities:
+            if k in q:
+                out.append({"id": f"{name}: {k}", "cluster": name, "quantity": k, "role": role,
+                            "model_quantity": _MODEL_QUANTITY.get(k, k),
+                            "value": q[k][0], "uncertainty": q[k][1]})
+    return out
+
+
+def cluster_value(row: dict) -> float:
+    """Model value of one :func:`cluster_rows` row under the active tables (NaN when not modelled)."""
+    try:
+        return float(_globular(row["cluster"])[2].get(row["quantity"], np.nan))
+    except (ValueError, NotModelled):
+        return np.nan
+
+
 def run_benchmark(progress=None, role=None) -> list[ClusterResult]:
     """Fit and predict every cluster (or only those of ``role``, 'fit' or 'check')."""
     results = []
@@ -111,20 +149,18 @@ def run_benchmark(progress=None, role=None) -> list[ClusterResult]:
                                          {"*": "no [Fe/H]"}))
             continue
         if d["kind"] == "GC":
-            age = q.get("age_gyr", (12.5,))[0]
-            age = float(np.clip(age, 0.5, 14.0))
+            age = float(np.clip(q.get("age_gyr", (12.5,))[0], 0.5, 14.0))
             if "hb_ratio" not in q:
                 results.append(ClusterResult(name, d["kind"], d["role"], feh, age, np.nan, 0, q, {},
                                              {"*": "no HB ratio to fit eta to"}))
                 continue
             try:
-                eta, sat = eta_for_hb_ratio(q["hb_ratio"][0], feh, age_gyr=age)
-                pred, why = _gc_predictions(feh, eta, age, 0.3)
+                eta, sat, pred, why = _globular(name)
             except (ValueError, NotModelled) as exc:
                 results.append(ClusterResult(name, d["kind"], d["role"], feh, age, np.nan, 0, q, {},
                                              {"*": str(exc)}))
                 continue
-            results.append(ClusterResult(name, d["kind"], d["role"], feh, age, eta, sat, q, pred, why))
+            results.append(ClusterResult(name, d["kind"], d["role"], feh, age, eta, sat, q, dict(pred), dict(why)))
         else:
             from .. import giant_branch as gb
             age = q.get("age_gyr", (np.nan,))[0]

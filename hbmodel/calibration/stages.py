@@ -76,12 +76,17 @@ class Stage:
     quantities: tuple[str, ...] = ()           # empty = every quantity of those stages
     unconstrained: tuple[str, ...] = ()         # "table:column" not constrained by any target
     description: str = ""
+    cluster_quantities: tuple[str, ...] = ()    # cluster-benchmark quantities of the 'fit' clusters
 
     def fit_rows(self):
         t = read_targets(role="fit")
         keep = [(r["stage"] in self.target_stages and (not self.quantities or r["quantity"] in self.quantities))
                 for r in t]
-        return t[np.array(keep, bool)] if len(t) else t
+        rows = list(t[np.array(keep, bool)]) if len(t) else []
+        if self.cluster_quantities:
+            from .benchmark import cluster_rows
+            rows += cluster_rows("fit", self.cluster_quantities)
+        return rows
 
     def tables(self):
         return tuple(dict.fromkeys(f.table for f in self.free))
@@ -99,6 +104,22 @@ class StageResult:
     texts: dict = field(default_factory=dict)
     chi2: float = np.nan
     success: bool = True
+
+
+def _is_cluster_row(r) -> bool:
+    return isinstance(r, dict) and "cluster" in r
+
+
+def _model_quantity(r) -> str:
+    return r["model_quantity"] if _is_cluster_row(r) else r["quantity"]
+
+
+def _evaluate(r) -> float:
+    """Model value of a target row or of a cluster-benchmark row."""
+    if _is_cluster_row(r):
+        from .benchmark import cluster_value
+        return cluster_value(r)
+    return evaluate_row(r)
 
 
 def _tables(names, texts):
@@ -154,13 +175,14 @@ def fit_stage(stage: Stage, texts: dict | None = None, *, max_nfev: int = 40, ro
     names = tuple(n for f in stage.free for n in f.names())
     rows = list(stage.fit_rows() if rows is None else rows)
     sig = np.array([np.hypot(float(r["uncertainty"]) if np.isfinite(float(r["uncertainty"])) else 0.0,
-                             sigma_model(r["quantity"])) for r in rows])
+                             sigma_model(_model_quantity(r))) for r in rows])
     skipped = []
     with trial_tables(texts):
         usable = []
         for r, s in zip(rows, sig):
             try:
-                evaluate_row(r)
+                if not np.isfinite(_evaluate(r)):
+                    raise NotModelled("the model gives no value (see the cluster benchmark)")
             except NotModelled as exc:
                 skipped.append((r["id"], str(exc)))
                 continue
@@ -175,7 +197,7 @@ def fit_stage(stage: Stage, texts: dict | None = None, *, max_nfev: int = 40, ro
             out = []
             for r, _ in usable:
                 try:
-                    out.append(evaluate_row(r))
+                    out.append(_evaluate(r))
                 except NotModelled:
                     out.append(np.nan)
             return np.array(out)
@@ -248,6 +270,16 @@ STAGES = (
                          "zahb_luminosity.csv: all (helium core, shell shape, intermediate-mass term)",
                          "zahb_teff.csv: all (ZAHB temperature-envelope relation)"),
           description="hydrogen-shell normalisation (quadratic in [M/H]) and metal-rich tilt"),
+    Stage("RR Lyrae strip",
+          _scalars("pulsation.csv", {"fobe_a": (3.93, 4.00), "fbe_a": (3.92, 3.99), "fore_a": (3.90, 3.98),
+                                     "fre_a": (3.92, 3.99)}),
+          ("pulsation",), ("rrab_period_mean", "rrc_fraction", "pab_feh_slope", "strip_edge_logteff_feh_slope"),
+          cluster_quantities=("pab_mean", "pc_mean", "f_rrc"),
+          unconstrained=("pulsation.csv: the edges' luminosity and mass slopes (*_b, *_c)",
+                         "pulsation.csv: the period relation (van Albada & Baker 1971) and P1/P0 (published)"),
+          description="zero points of the four instability-strip edges, from Oosterhoff mean periods and RRc "
+                      "fractions, and each 'fit' cluster's mean RRab / RRc periods and RRc fraction with its eta "
+                      "fitted to its HB ratio"),
     Stage("RGB bump and lifetimes",
           _scalars("giant_branch_constants.csv", {"bump_l0": (0.8, 2.0), "bump_l1": (-1.0, 0.0),
                                                   "bump_l2": (-0.3, 0.3), "bump_ew_dex": (0.0, 0.3)})
