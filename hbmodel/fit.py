@@ -816,6 +816,30 @@ class MassLossFit:
         })
         if self._has_cmd:
             out["hess_deviance"] = self.hess_deviance()
+        out["warnings"] = self.warnings()
+        return out
+
+    def warnings(self) -> list:
+        """Plain-text warnings about this fit: an unconverged chain, or a sampled parameter whose
+        posterior piles up on a bound of its prior range (more than 20% of the draws within 2% of the
+        range from the bound, i.e. the data push beyond what the prior allows)."""
+        self._fitted()
+        out = []
+        if not self.converged_:
+            out.append("the chain has not converged (raise --max-steps); intervals are unreliable")
+        chain = np.asarray(self.chain_theta_, float)
+        for i, n in enumerate(self.param_names_):
+            lo, hi = self._bnds[n]
+            if n in ("shift_colour", "shift_mag", "age") or not np.isfinite(hi - lo) or hi <= lo:
+                continue
+            x = chain[:, i]
+            tol = 0.02 * (hi - lo)
+            for side, b, near in (("lower", lo, x < lo + tol), ("upper", hi, x > hi - tol)):
+                if n in ("mass_loss_sd", "field_fraction", "helium_fraction", "delta_y") and side == "lower":
+                    continue  # zero spread / no field is a legitimate answer, not a failure
+                if np.mean(near) > 0.2:
+                    out.append(f"{n} piles up on the {side} bound of its prior ({b:g}): the model cannot "
+                               f"describe the data inside the prior (e.g. unmodelled differential reddening)")
         return out
 
     def _fitted(self):
