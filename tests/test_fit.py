@@ -231,3 +231,14 @@ def test_red_clump_mass_loss_is_not_biased():
     print("red-clump mass-loss pulls:", np.round(pulls, 2))
     assert abs(pulls.mean()) < 1.0
     assert pulls.std() < 1.8 and np.max(np.abs(pulls)) < 3.5
+
+
+def test_wrong_metallicity_fails_the_posterior_predictive_check():
+    # a model 0.5 dex off in [Fe/H] misplaces the HB and RGB: its posterior-predictive p-value
+    # (Gelman, Meng & Stern 1996) must fall below 0.01 and be warned, the right model must not
+    pop, cat = _mock(GC, MassLoss.from_eta(0.45, 0.03), 400, 5)
+    right = _fit(GC, cat, seed=1).result()
+    wrong = _fit(dict(GC, feh=GC["feh"] + 0.5), cat, seed=1).result()
+    assert right["goodness_of_fit"]["p_value"] >= 0.01
+    assert wrong["goodness_of_fit"]["p_value"] < 0.01
+    assert any("poor fit" in w for w in wrong["warnings"])
