@@ -816,6 +816,65 @@ class MassLossFit:
         })
         if self._has_cmd:
             out["hess_deviance"] = self.hess_deviance()
+        out["goodness_of_fit"] = self.goodness_of_fit() if self._has_cmd else None
+        out["warnings"] = self.warnings()
+        gof = out["goodness_of_fit"]
+        if gof is not None and gof["p_value"] < 0.01:
+            out["warnings"].append(f"poor fit: posterior-predictive p = {gof['p_value']:.3f} of the Hess "
+                                   "deviance (the model does not describe the CMD)")
+        return out
+
+    def _binned_model(self, theta, ce, me, sub=6):
+        """Model counts integrated over each Hess bin (``sub`` x ``sub`` midpoints per bin: a narrow
+        locus is not sampled correctly by one midpoint per bin)."""
+        fc = np.linspace(ce[0], ce[-1], (ce.size - 1) * sub + 1)
+        fm = np.linspace(me[0], me[-1], (me.size - 1) * sub + 1)
+        fine = self.likelihood_.model_hess(self._unpack(np.asarray(theta)[None], self.param_names_), fc, fm)
+        return fine.reshape(me.size - 1, sub, ce.size - 1, sub).sum(axis=(1, 3))
+
+    def goodness_of_fit(self, n_rep=100, nbins=(30, 30), seed=0):
+        """Posterior-predictive p-value (Gelman, Meng & Stern 1996, Stat. Sinica 6, 733) of the Hess
+        Poisson deviance (Dolphin 2002, eq. 10): for posterior draws, the deviance of the data against the
+        draw's model Hess is compared with that of a Poisson replicate of the model; p = fraction of
+        replicates at least as discrepant."""
+        self._fitted()
+        rng = np.random.default_rng(seed)
+        cmin, cmax, mb, mf = self.region_
+        ce = np.linspace(cmin, cmax, nbins[0] + 1)
+        me = np.linspace(mb, mf, nbins[1] + 1)
+        obs, _, _ = np.histogram2d(self.data_["mag"], self.data_["colour"], bins=(me, ce))
+        chain = np.asarray(self.chain_theta_, float)
+        idx = rng.choice(chain.shape[0], size=min(n_rep, chain.shape[0]), replace=False)
+        d_obs, d_rep = [], []
+        for k in idx:
+            model = self._binned_model(chain[k], ce, me)
+            d_obs.append(hess_poisson_deviance(obs, model))
+            d_rep.append(hess_poisson_deviance(rng.poisson(model), model))
+        d_obs, d_rep = np.array(d_obs), np.array(d_rep)
+        return {"p_value": float(np.mean(d_rep >= d_obs)), "deviance_observed": float(np.median(d_obs)),
+                "deviance_replicated": float(np.median(d_rep)), "n_draws": int(idx.size)}
+
+    def warnings(self) -> list:
+        """Plain-text warnings about this fit: an unconverged chain, or a sampled parameter whose
+        posterior piles up on a bound of its prior range (more than 20% of the draws within 2% of the
+        range from the bound, i.e. the data push beyond what the prior allows)."""
+        self._fitted()
+        out = []
+        if not self.converged_:
+            out.append("the chain has not converged (raise --max-steps); intervals are unreliable")
+        chain = np.asarray(self.chain_theta_, float)
+        for i, n in enumerate(self.param_names_):
+            lo, hi = self._bnds[n]
+            if n in ("shift_colour", "shift_mag", "age") or not np.isfinite(hi - lo) or hi <= lo:
+                continue
+            x = chain[:, i]
+            tol = 0.02 * (hi - lo)
+            for side, b, near in (("lower", lo, x < lo + tol), ("upper", hi, x > hi - tol)):
+                if n in ("mass_loss_sd", "field_fraction", "helium_fraction", "delta_y") and side == "lower":
+                    continue  # zero spread / no field is a legitimate answer, not a failure
+                if np.mean(near) > 0.2:
+                    out.append(f"{n} piles up on the {side} bound of its prior ({b:g}): the model cannot "
+                               f"describe the data inside the prior (e.g. unmodelled differential reddening)")
         return out
 
     def _fitted(self):

@@ -119,6 +119,19 @@ def test_short_chain_is_not_called_converged():
     f = MassLossFit(pop, Priors(), max_steps=100, chunk=100).fit(masses=tab)
     # 100 steps cannot exceed 50 autocorrelation times (tau >= 1 for any chain): emcee docs / Sokal 1997
     assert f.converged_ is False
+    assert any("not converged" in w for w in f.result()["warnings"])
+
+
+def test_mass_loss_beyond_its_prior_range_is_warned():
+    # clump masses 0.3 Msun below the tip but the prior caps the loss at 0.1 Msun: the posterior must
+    # pile up on the cap (a prior that excludes the truth; Gelman et al. 2013, BDA3 ch. 6, model checking)
+    pop = Population(0.3, 8.0)
+    m = pop.subpopulations[0].tip_mass_msun
+    tab = Table({"mass": [m] * 6 + [m - 0.3] * 6, "mass_err": [0.01] * 12, "phase": ["rgb"] * 6 + ["clump"] * 6})
+    f = MassLossFit(pop, Priors(mass_loss=(0.0, 0.1)), seed=2, max_steps=1500).fit(masses=tab)
+    assert any("mass_loss piles up on the upper bound" in w for w in f.result()["warnings"])
+    ok = MassLossFit(pop, Priors(), seed=2, max_steps=1500).fit(masses=tab)
+    assert not any("mass_loss piles" in w for w in ok.result()["warnings"])
 
 
 def test_model_comparison_prefers_spread_for_a_spread_mock():
@@ -218,3 +231,14 @@ def test_red_clump_mass_loss_is_not_biased():
     print("red-clump mass-loss pulls:", np.round(pulls, 2))
     assert abs(pulls.mean()) < 1.0
     assert pulls.std() < 1.8 and np.max(np.abs(pulls)) < 3.5
+
+
+def test_wrong_metallicity_fails_the_posterior_predictive_check():
+    # a model 0.5 dex off in [Fe/H] misplaces the HB and RGB: its posterior-predictive p-value
+    # (Gelman, Meng & Stern 1996) must fall below 0.01 and be warned, the right model must not
+    pop, cat = _mock(GC, MassLoss.from_eta(0.45, 0.03), 400, 5)
+    right = _fit(GC, cat, seed=1).result()
+    wrong = _fit(dict(GC, feh=GC["feh"] + 0.5), cat, seed=1).result()
+    assert right["goodness_of_fit"]["p_value"] >= 0.01
+    assert wrong["goodness_of_fit"]["p_value"] < 0.01
+    assert any("poor fit" in w for w in wrong["warnings"])

@@ -124,6 +124,8 @@ def run(args):
                   f"-{s[k]['median'] - s[k]['lo']:.4f})")
     c = s["convergence"]
     print(f"  converged: {c['converged']}  (steps {c['n_steps']}, n_eff {c['n_eff']})")
+    for w in s.get("warnings", []):
+        print(f"  warning: {w}")
     if s.get("model_comparison"):
         mc = s["model_comparison"]
         print(f"  preferred model: {mc['preferred']} (dBIC = {mc['delta_bic']:.1f} over {mc['runner_up']}, "
