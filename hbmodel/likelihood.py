@@ -223,10 +223,14 @@ def _intrinsic_nodes(sub_pop, sub, masses, bands, n_tau, n_agb):
     l0 = np.repeat(z.logl, n_tau)
     t0 = np.repeat(z.logteff, n_tau)
     logl_h, logt_h = hbe.hb_track(l0, t0, np.tile(tau, m.size))
+    # the same physics as Population.model_stars and the mock sampler: the redward end of the HB never
+    # crosses the RGB, and the early AGB is placed against the RGB of the population's tip mass
+    logt_h = gb.clip_blue_of_rgb(logl_h, logt_h, sub.mh, sub.tip_mass_msun, sub.helium_excess)
     l0a = np.repeat(z.logl, n_agb)
     t0a = np.repeat(z.logteff, n_agb)
     ma = np.repeat(m, n_agb)
-    logl_a, logt_a = hbe.agb_track(l0a, t0a, np.tile(s, m.size), ma, sub.mh, sub.helium_excess)
+    logl_a, logt_a = hbe.agb_track(l0a, t0a, np.tile(s, m.size), ma, sub.mh, sub.helium_excess,
+                                   sub.tip_mass_msun)
     mass = np.concatenate([np.repeat(m, n_tau), ma])
     logl = np.concatenate([logl_h, logl_a])
     logt = np.concatenate([logt_h, logt_a])
