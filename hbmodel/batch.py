@@ -77,6 +77,8 @@ def _reason(exc: BaseException) -> str:
 
 
 def _atomic_write_bytes(path: pathlib.Path, data: bytes) -> None:
+    from .io import _umask
+
     path = pathlib.Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
@@ -84,6 +86,7 @@ def _atomic_write_bytes(path: pathlib.Path, data: bytes) -> None:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600 files: give the user's usual mode
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(OSError):
@@ -97,12 +100,15 @@ def _atomic_write_json(path: pathlib.Path, obj) -> None:
 
 @contextlib.contextmanager
 def _atomic_path(path: pathlib.Path):
-    """Yield a temporary path next to ``path``; move it onto ``path`` on success."""
+    """Yield a temporary path next to ``path``; move it onto ``path`` on success (with the umask's mode)."""
+    from .io import _umask
+
     path = pathlib.Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=path.suffix, dir=path.parent)
     os.close(fd)
     try:
         yield pathlib.Path(tmp)
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(OSError):
@@ -401,6 +407,52 @@ def _executor(n_jobs, scheduler):
         client.close()
 
 
+@contextlib.contextmanager
+def _workers_ignore_interrupts():
+    """Start worker processes with SIGINT blocked (the signal mask is inherited through fork and exec).
+
+    A Ctrl-C then reaches only this process, which stops the workers and reports one line, instead of
+    every worker printing its own traceback (a worker interrupted while still importing would).  A
+    Ctrl-C during the block is held and delivered when it ends.  Same idea as loky's resource tracker;
+    the resource trackers are started first because starting one unblocks SIGINT again."""
+    import signal
+    import threading
+
+    if not hasattr(signal, "pthread_sigmask") or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    from multiprocessing import resource_tracker as mp_tracker
+
+    from joblib.externals.loky.backend import resource_tracker as loky_tracker
+    for tracker in (mp_tracker, loky_tracker):
+        with contextlib.suppress(Exception):
+            tracker.ensure_running()
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
+@contextlib.contextmanager
+def _parallel_results(parallel, calls):
+    """Run ``parallel(calls)`` with its workers started under :func:`_workers_ignore_interrupts` and yield
+    the result generator; on the way out (finished, failed or interrupted) close it, which stops the
+    workers, without joblib's warning about cancelled tasks (the caller reports the one line)."""
+    import warnings
+
+    results = None
+    try:
+        with _workers_ignore_interrupts():  # joblib starts its workers at the call
+            results = parallel(calls)
+        yield results
+    finally:
+        if results is not None:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                results.close()
+
+
 def _progress_bar(total: int, progress, desc: str):
     show = sys.stderr.isatty() if progress is None else bool(progress)
     if not show or total == 0:
@@ -457,13 +509,14 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
                                            return_as="generator_unordered")
                 calls = (joblib.delayed(_run_one)(job, task, str(out_dir / job["name"]))
                          for job in todo)
-                for rec in parallel(calls):
-                    records[rec["name"]] = rec
-                    if bar is not None:
-                        bar.update(1)
-                        n_fail = sum(r["status"] == "failed" for r in records.values())
-                        if n_fail:
-                            bar.set_postfix(failed=n_fail)
+                with _parallel_results(parallel, calls) as results:
+                    for rec in results:
+                        records[rec["name"]] = rec
+                        if bar is not None:
+                            bar.update(1)
+                            n_fail = sum(r["status"] == "failed" for r in records.values())
+                            if n_fail:
+                                bar.set_postfix(failed=n_fail)
     finally:
         if bar is not None:
             bar.close()
@@ -553,24 +606,36 @@ def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
 
 
 # --------------------------------------------------------------------------- chunks
-def _write_chunk(make_chunk: Callable, index: int, n: int, child, path: str) -> str:
-    """Worker side: build one chunk and write it as a Parquet partition, atomically."""
+def _write_chunk(make_chunk: Callable, index: int, n: int, child, path: str, exact_rows: bool = True) -> str:
+    """Worker side: build one chunk, check the free disk, write it as a Parquet partition, atomically."""
     import pyarrow as pa
     import pyarrow.parquet as pq
+
+    from .resources import check_free_disk
 
     table = make_chunk(index, n, child)
     if not isinstance(table, pa.Table):
         raise ValueError(f"make_chunk must return a pyarrow.Table, got {type(table).__name__}")
-    if table.num_rows != n:
+    if exact_rows and table.num_rows != n:
         raise ValueError(f"make_chunk({index}) returned {table.num_rows} rows, expected {n}")
     path = pathlib.Path(path)
+    # the uncompressed Arrow size bounds the Parquet file (measured: Parquet is 0.8-1.0 of it here)
+    check_free_disk(path.parent, table.nbytes, f"partition {path.name}")
     with _atomic_path(path) as tmp:
         pq.write_table(table, tmp)
     return str(path)
 
 
+def _remove_partial_parts(out_dir: pathlib.Path) -> None:
+    """Remove temporary partition files (``.part-NNNNN.*.parquet``) left by workers that were stopped."""
+    for p in out_dir.glob(".part-*.parquet"):
+        with contextlib.suppress(OSError):
+            p.unlink()
+
+
 def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *, n_jobs: int = 1,
-                scheduler=None, force: bool = False, seed: int = 0) -> list[pathlib.Path]:
+                scheduler=None, force: bool = False, seed: int = 0, balanced: bool = False,
+                exact_rows: bool = True) -> list[pathlib.Path]:
     """Generate a survey-size table in Parquet partitions, one chunk per worker at a time.
 
     ``make_chunk(index, n, seed_sequence_child) -> pyarrow.Table`` builds chunk
@@ -580,9 +645,18 @@ def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *,
     ... atomically; existing parts are skipped (resumable) unless ``force``.
     A re-run with different ``n_total``/``chunk_size``/``seed`` into the same
     directory is refused (use ``force=True`` or a new directory).
+
+    The ``n_chunks = ceil(n_total / chunk_size)`` chunk sizes sum to ``n_total``: ``chunk_size`` each and
+    the remainder last, or with ``balanced`` sizes that differ by at most one.  With ``exact_rows=False``,
+    ``n`` counts units of the caller's choosing (e.g. HB stars of a mock) and the row count is not checked.
+    Before each partition is written its worker checks the free disk; if it runs short (or the run is
+    interrupted) the run stops with a one-line error, and no partial partition file is left (finished
+    partitions stay; a re-run resumes).
     Returns the list of part paths in chunk order.
     """
     import joblib
+
+    from .resources import ResourceError
 
     for label, v in (("n_total", n_total), ("chunk_size", chunk_size)):
         if not isinstance(v, (int, np.integer)) or isinstance(v, bool) or v < 1:
@@ -598,6 +672,8 @@ def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *,
     out_dir = pathlib.Path(out_dir)
     _prepare_out_dir(out_dir, _CHUNK_MANIFEST)
     manifest = {"n_total": n_total, "chunk_size": chunk_size, "seed": seed, "n_chunks": n_chunks}
+    if balanced:
+        manifest["balanced"] = True
     old = _read_json(out_dir / _CHUNK_MANIFEST)
     if not force and isinstance(old, dict) and old and old != manifest:
         raise ValueError(f"{out_dir} holds chunks made with {old}; asked for {manifest} "
@@ -609,13 +685,27 @@ def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *,
             if p not in paths:
                 p.unlink()
     children = np.random.SeedSequence(seed).spawn(n_chunks)
-    sizes = [min(chunk_size, n_total - i * chunk_size) for i in range(n_chunks)]
+    if balanced:
+        base, extra = divmod(n_total, n_chunks)
+        sizes = [base + (i < extra) for i in range(n_chunks)]
+    else:
+        sizes = [min(chunk_size, n_total - i * chunk_size) for i in range(n_chunks)]
     todo = [i for i in range(n_chunks) if force or not paths[i].exists()]
     if todo:
-        with _executor(n_jobs, scheduler) as nj:
-            parallel = joblib.Parallel(n_jobs=nj, batch_size=1, pre_dispatch="n_jobs",
-                                       return_as="generator_unordered")
-            for _ in parallel(joblib.delayed(_write_chunk)(make_chunk, i, sizes[i], children[i],
-                                                           str(paths[i])) for i in todo):
-                pass
+        try:
+            with _executor(n_jobs, scheduler) as nj:
+                parallel = joblib.Parallel(n_jobs=nj, batch_size=1, pre_dispatch="n_jobs",
+                                           return_as="generator_unordered")
+                calls = (joblib.delayed(_write_chunk)(make_chunk, i, sizes[i], children[i], str(paths[i]), exact_rows)
+                         for i in todo)
+                with _parallel_results(parallel, calls) as results:
+                    for _ in results:
+                        pass
+        except BaseException as exc:
+            _remove_partial_parts(out_dir)
+            if isinstance(exc, ResourceError):
+                done = sum(p.exists() for p in paths)
+                raise ResourceError(f"{exc}; stopped with {done} of {n_chunks} partitions written in {out_dir} "
+                                    "(free some space and re-run the same command to resume)") from None
+            raise
     return paths

@@ -15,6 +15,7 @@ import importlib
 import sys
 
 from . import __version__
+from .commands._common import add_resource_arguments
 
 #: Sub-command modules, in the order ``hbmodel --help`` lists them.
 COMMANDS = ("predict", "mock", "fit", "distance", "classify", "batch", "demo")
@@ -85,14 +86,15 @@ def build_parser() -> tuple[argparse.ArgumentParser, dict]:
         p.add_argument("--config", metavar="FILE.toml",
                        help="read options from a TOML file (command-line flags override)")
         mod.add_arguments(p)
+        add_resource_arguments(p)
         modules[mod.NAME] = (mod, p)
     return parser, modules
 
 
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
-    parser, modules = build_parser()
     try:
+        parser, modules = build_parser()
         # First pass: find the command and a possible --config file.
         command = argv[0] if argv and not argv[0].startswith("-") else None
         if command in modules:

@@ -416,3 +416,20 @@ def test_chunked_resume_and_guards(tmp_path):
         run_chunked(10, 5, lambda i, n, c: _normal_chunk(i, 3, c), tmp_path / "b")
     with pytest.raises(ValueError, match="positive integer"):
         run_chunked(0, 5, _normal_chunk, tmp_path / "c")
+
+
+@pytest.mark.parametrize("umask", [0o022, 0o027])
+def test_outputs_follow_umask(jobs_file, tmp_path, umask):
+    # case (issue 16): batch outputs and chunked Parquet partitions were written 0600 (mkstemp's mode),
+    # unreadable to the group on the shared file system of a Dask cluster
+    old = os.umask(umask)
+    try:
+        run_batch(jobs_file, gauss_mag_task, tmp_path / "out", n_jobs=1)
+        parts = run_chunked(100, 40, _normal_chunk, tmp_path / "c")
+    finally:
+        os.umask(old)
+    files = [tmp_path / "out" / n for n in ("summary.ecsv", "summary.csv", "summary.png", ".hbmodel-batch")]
+    files += [tmp_path / "out" / "Vela-0" / "result.json", tmp_path / "c" / ".hbmodel-chunks.json", *parts]
+    assert {f.name: oct(f.stat().st_mode & 0o777) for f in files} == {f.name: oct(0o666 & ~umask) for f in files}
+    for d in (tmp_path / "out", tmp_path / "out" / "Vela-0", tmp_path / "c"):
+        assert d.stat().st_mode & 0o777 == 0o777 & ~umask

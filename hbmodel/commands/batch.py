@@ -34,6 +34,10 @@ def run(args):
     if args.jobs < 1:
         raise ValueError("--jobs must be at least 1")
     jobs = read_jobs(args.jobs_table)
+    from ..batch import _jobs_as_dicts
+    from ..resources import batch_estimate, check_budget
+    check_budget(batch_estimate(_jobs_as_dicts(jobs), args.task, n_jobs=args.jobs, scheduler=args.scheduler,
+                                out_dir=args.out), max_memory=args.max_memory, max_disk=args.max_disk)
     summary = run_batch(jobs, TASKS[args.task], args.out, n_jobs=args.jobs, scheduler=args.scheduler,
                         force=args.force)
     status = np.asarray(summary["status"]).astype(str)

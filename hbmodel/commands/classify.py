@@ -48,6 +48,9 @@ def run(args):
     from ..classify import CHeBClassifier
     from ..io import read_catalog, write_table
     from .distance import _population
+    from ..resources import catalog_task_estimate, check_budget
+    check_budget(catalog_task_estimate("classify", args.catalog, out=args.out), max_memory=args.max_memory,
+                 max_disk=args.max_disk)
     mapping = parse_mapping(args.columns, "--columns")
     req = ["teff", "logg"] + (["mass"] if args.use_mass else [])
     t = read_catalog(args.catalog, columns=mapping or None, required=req)

@@ -91,6 +91,9 @@ def run(args):
         raise ValueError("--reddening-from-color needs --color")
     if args.ebv is not None and args.ebv < 0:
         raise ValueError("E(B-V) must be non-negative")
+    from ..resources import catalog_task_estimate, check_budget
+    check_budget(catalog_task_estimate("distance", args.catalog, out=args.out), max_memory=args.max_memory,
+                 max_disk=args.max_disk)
     mapping = parse_mapping(args.columns, "--columns")
     needed = [args.band] + (list(colour) if colour and args.reddening_from_color else [])
     t = read_catalog(args.catalog, columns=mapping or None, required=sorted(set(needed)))

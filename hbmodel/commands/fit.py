@@ -82,6 +82,9 @@ def run(args):
     if args.max_steps < 100:
         raise ValueError("--max-steps must be at least 100")
     region = parse_floats(args.region, 4, "--region") if args.region else None
+    from ..resources import check_budget, fit_estimate
+    check_budget(fit_estimate(args.catalog, args.masses, max_steps=args.max_steps, out_dir=args.out),
+                 max_memory=args.max_memory, max_disk=args.max_disk)
     # read everything before touching the output directory
     cat = None
     if args.catalog is not None:

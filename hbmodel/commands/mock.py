@@ -93,9 +93,14 @@ def run(args):
         from ..mock import write_chunked_mock
         parts = write_chunked_mock(pop, bands=bands, n_hb=args.n_hb, total_mass_msun=args.total_mass, obs=obs,
                                    seed=args.seed, out_dir=args.out, chunk_size=args.chunk_size,
-                                   n_jobs=args.jobs, scheduler=args.scheduler, force=args.force)
+                                   n_jobs=args.jobs, scheduler=args.scheduler, force=args.force,
+                                   max_memory=args.max_memory, max_disk=args.max_disk)
         print(f"wrote {len(parts)} Parquet partitions to {args.out}")
         return 0
+    from ..mock import mock_estimate
+    from ..resources import check_budget
+    check_budget(mock_estimate(pop, bands=bands, obs=obs, out=args.out, n_hb=args.n_hb,
+                               total_mass_msun=args.total_mass), max_memory=args.max_memory, max_disk=args.max_disk)
     rng = np.random.default_rng(args.seed)
     table = make_mock(pop, bands=bands, rng=rng, n_hb=args.n_hb, total_mass_msun=args.total_mass, obs=obs)
     write_table(table, args.out, force=args.force)

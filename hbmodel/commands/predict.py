@@ -27,6 +27,8 @@ def add_arguments(p):
     g.add_argument("--bands", default="I,Ks", help="bands of the clump grid (default I,Ks)")
     g.add_argument("--out", default=None, help="output directory of a grid (table + PNG)")
     g.add_argument("--force", action="store_true", help="write into an existing output directory")
+    g.add_argument("--max-models", type=int, default=None, metavar="N",
+                   help="largest number of models in a grid (default 10000, about 10 minutes)")
 
 
 def _fmt(v, spec=".3f"):
@@ -34,9 +36,14 @@ def _fmt(v, spec=".3f"):
 
 
 def _grid(args):
-    from ..grids import clump_grid, hb_type_grid, parse_range
+    from ..grids import clump_grid, grid_estimate, hb_type_grid, parse_range, range_count
     from ..io import atomic_savefig, prepare_out_dir, write_table
     from ..plots import plot_clump_grid, plot_hb_type_grid
+    from ..resources import check_budget
+
+    def budget(n_models, what):  # before any model is made
+        check_budget(grid_estimate(n_models, args.out, what), max_memory=args.max_memory, max_disk=args.max_disk,
+                     max_models=args.max_models)
     if not args.out:
         raise ValueError("a grid needs --out DIR")
     if args.age is None:
@@ -46,12 +53,14 @@ def _grid(args):
         key, _, rng = args.grid.partition("=")
         if key.strip() != "feh":
             raise ValueError("--grid must be feh=START:STOP:STEP")
-        fehs = parse_range(rng, "--grid")
-        series, values = "age", np.array([args.age])
+        series, vals = "age", None
         if args.series:
             series, _, vals = args.series.partition("=")
             series = series.strip()
-            values = parse_range(vals, "--series")
+        budget(range_count(rng, "--grid") * (range_count(vals, "--series") if vals is not None else 1),
+               "this HB-type grid")
+        fehs = parse_range(rng, "--grid")
+        values = np.array([args.age]) if vals is None else parse_range(vals, "--series")
         out = prepare_out_dir(args.out, force=args.force)
         t = hb_type_grid(fehs, series, values, age_gyr=args.age, alpha_fe=args.alpha_fe, eta=eta,
                          eta_sd=args.eta_sd, helium=args.helium, law=args.law)
@@ -67,6 +76,7 @@ def _grid(args):
     except IndexError:
         raise ValueError("--clump-grid must be age=A:B:S,feh=F:G:S") from None
     del spec
+    budget(range_count(age_txt, "--clump-grid age") * range_count(feh_txt, "--clump-grid feh"), "this clump grid")
     ages, fehs = parse_range(age_txt, "--clump-grid age"), parse_range(feh_txt, "--clump-grid feh")
     bands = [b.strip() for b in args.bands.split(",") if b.strip()]
     out = prepare_out_dir(args.out, force=args.force)
