@@ -339,3 +339,31 @@ def test_check_free_disk_message(tmp_path, monkeypatch):
     monkeypatch.setattr(resources, "free_disk_bytes", lambda p: 10 * 2**20)
     with pytest.raises(ResourceError, match="needs about 100 MiB of disk but only 10.0 MiB is free"):
         resources.check_free_disk(tmp_path, 100 * 2**20, "this")
+
+
+def test_chunked_multiple_populations_exact(tmp_path, capsys):
+    # case: with a helium-enriched second generation the partitions' HB counts used to be rounded per
+    # sub-population (400 became 404 with 100-star partitions)
+    out = tmp_path / "he.parquet"
+    assert main(["mock", *POP_ARGS, "--helium-enriched-fraction", "0.4", "--delta-y", "0.04", "--n-hb", "400",
+                 "--bands", "V,I", "--chunk-size", "100", "--out", str(out)]) == 0
+    assert _hb(_parts(out)) == 400
+
+
+def test_hb_counts_of_subpopulations_exact_and_unbiased():
+    # case: HB counts over sub-populations sum to n_hb exactly, and each keeps its expected mean
+    # (systematic sampling: every count is floor(mean) or floor(mean) + 1, with P(+1) = fractional part)
+    ages = np.geomspace(1.0, 10.0, 8)
+    pop = Population.from_history(ages, np.gradient(ages), 0.0, mass_loss=MassLoss.from_eta(0.3, 0.03))
+    rates = pop.phase_times()
+    expected = rates["hb"] / rates["hb"].sum() * 37
+    rng = np.random.default_rng(9)
+    counts = np.zeros((4000, len(ages)), int)
+    for k in range(counts.shape[0]):
+        for i, ph, n, _win in pop.phase_counts(37, rng, rates=rates):
+            if ph == "hb":
+                counts[k, i] = n
+    assert np.all(counts.sum(axis=1) == 37)
+    assert np.all((counts >= np.floor(expected)) & (counts <= np.floor(expected) + 1))
+    # binomial error of each mean: sqrt(p (1 - p) / 4000) <= 0.008
+    assert np.max(np.abs(counts.mean(axis=0) - expected)) < 0.035
