@@ -237,11 +237,15 @@ def mock_columns(bands) -> int:
     return 9 + 3 * len(tuple(bands))
 
 
+#: Memory of a CMD plot per plotted star (measured ~140 bytes with 5x10^5 stars), rounded up.
+PLOT_BYTES_PER_STAR = 200.0
+
+
 def mock_estimate(population: Population, *, bands, obs: ObservationSpec = ObservationSpec(), out=None,
-                  n_hb=None, total_mass_msun=None):
+                  n_hb=None, total_mass_msun=None, plot=False):
     """:class:`hbmodel.resources.Estimate` of :func:`make_mock` and of writing its table to ``out`` (none:
-    the table stays in memory), from the expected number of stars (a total mass counts through
-    :func:`expected_hb_count`)."""
+    the table stays in memory) and, with ``plot``, of its CMD plot, from the expected number of stars (a
+    total mass counts through :func:`expected_hb_count`)."""
     from pathlib import Path
 
     from .resources import Estimate, table_disk_bytes, table_memory_bytes
@@ -249,9 +253,11 @@ def mock_estimate(population: Population, *, bands, obs: ObservationSpec = Obser
         n_hb = expected_hb_count(population, total_mass_msun)
     rows = float(n_hb) * stars_per_hb_star(population, obs) + obs.n_field
     cols = mock_columns(bands)
+    plot_bytes = PLOT_BYTES_PER_STAR * rows if plot else 0.0
     if out is None:
-        return Estimate("this mock", memory_bytes=table_memory_bytes(rows, cols), detail=f"about {rows:.3g} stars")
-    return Estimate("this mock", memory_bytes=table_memory_bytes(rows, cols, out),
+        return Estimate("this mock", memory_bytes=table_memory_bytes(rows, cols) + plot_bytes,
+                        detail=f"about {rows:.3g} stars")
+    return Estimate("this mock", memory_bytes=table_memory_bytes(rows, cols, out) + plot_bytes,
                     disk_bytes=table_disk_bytes(rows, cols, out), disk_path=Path(out).parent,
                     detail=f"about {rows:.3g} stars")
 

@@ -367,3 +367,10 @@ def test_hb_counts_of_subpopulations_exact_and_unbiased():
     assert np.all((counts >= np.floor(expected)) & (counts <= np.floor(expected) + 1))
     # binomial error of each mean: sqrt(p (1 - p) / 4000) <= 0.008
     assert np.max(np.abs(counts.mean(axis=0) - expected)) < 0.035
+
+
+def test_single_prediction_honours_max_memory(capsys):
+    # case: --max-memory is never silently ignored, even where the run is small
+    assert main(["predict", *POP_ARGS, "--max-memory", "1M"]) == 2
+    assert "this prediction needs about" in capsys.readouterr().err
+    assert main(["predict", *POP_ARGS, "--json"]) == 0

@@ -93,6 +93,9 @@ def _grid(args):
 def run(args):
     if args.grid or args.clump_grid:
         return _grid(args)
+    from ..grids import grid_estimate
+    from ..resources import check_budget
+    check_budget(grid_estimate(1, None, "this prediction"), max_memory=args.max_memory, max_models=args.max_models)
     pop = population_from_args(args)
     res = pop.predict()
     if args.json:
