@@ -33,7 +33,7 @@ def add_population_arguments(p: argparse.ArgumentParser, *, mass_loss_required=T
 def add_resource_arguments(p: argparse.ArgumentParser):
     """--max-memory / --max-disk, on every command (see :mod:`hbmodel.resources`)."""
     from ..resources import size_argument
-    g = p.add_argument_group("resource limits (default: 80%% of the available memory, 90%% of the free disk)")
+    g = p.add_argument_group("resource limits (default: 80% of the available memory, 90% of the free disk)")
     g.add_argument("--max-memory", type=size_argument, default=None, metavar="SIZE",
                    help="largest memory the run may plan to use, e.g. 4G or 500M")
     g.add_argument("--max-disk", type=size_argument, default=None, metavar="SIZE",
