@@ -200,9 +200,10 @@ def test_chunked_disk_estimate_matches_partitions(tmp_path):
 
 def test_memory_estimate_bounds_the_real_peak(tmp_path):
     # case: the memory estimate of a mock is an upper bound of the measured peak, and not a wild one
-    code = ("import resource, sys; from hbmodel.cli import main; "
+    # VmHWM: the peak resident size of this process image (ru_maxrss would carry the forking parent's)
+    code = ("import sys; from hbmodel.cli import main; "
             "rc = main(sys.argv[1:]); "
-            "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024)")
+            "print([int(l.split()[1]) * 1024 for l in open('/proc/self/status') if l.startswith('VmHWM')][0])")
     args = [*POP_ARGS, "--n-hb", "60000", "--bands", "V,I", "--out", "m.parquet"]
     proc = subprocess.run([sys.executable, "-c", code, "mock", *args], cwd=tmp_path, capture_output=True,
                           text=True, timeout=120)
