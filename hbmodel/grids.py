@@ -41,7 +41,8 @@ def range_count(text: str, name: str) -> int:
 
 def grid_estimate(n_models: int, out_dir, what: str):
     """:class:`hbmodel.resources.Estimate` of a prediction grid of ``n_models`` populations written to
-    ``out_dir`` (an ECSV row and a few kB of memory per model, plus the plots; no disk without ``out_dir``)."""
+    ``out_dir`` (an ECSV row and a few kB of memory per model, plus the plots; no disk without
+    ``out_dir``)."""
     from .resources import Estimate
     return Estimate(what, models=int(n_models), memory_bytes=4096.0 * n_models,
                     disk_bytes=400.0 * n_models + 2**20 if out_dir is not None else 0.0, disk_path=out_dir,

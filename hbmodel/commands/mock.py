@@ -99,8 +99,8 @@ def run(args):
         return 0
     from ..mock import mock_estimate
     from ..resources import check_budget
-    check_budget(mock_estimate(pop, bands=bands, obs=obs, out=args.out, n_hb=args.n_hb,
-                               total_mass_msun=args.total_mass, plot=bool(args.plot)), max_memory=args.max_memory, max_disk=args.max_disk)
+    check_budget(mock_estimate(pop, bands=bands, obs=obs, out=args.out, n_hb=args.n_hb, total_mass_msun=args.total_mass,
+                               plot=bool(args.plot)), max_memory=args.max_memory, max_disk=args.max_disk)
     rng = np.random.default_rng(args.seed)
     table = make_mock(pop, bands=bands, rng=rng, n_hb=args.n_hb, total_mass_msun=args.total_mass, obs=obs)
     write_table(table, args.out, force=args.force)
