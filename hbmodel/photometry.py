@@ -136,35 +136,37 @@ def _nearest_band(name: str) -> str:
     return lookup[difflib.get_close_matches(name.casefold(), list(lookup), n=1, cutoff=0.0)[0]]
 
 
-def resolve_band(name, what: str = "band") -> str:
+def resolve_band(name, what: str | None = None) -> str:
     """Canonical name of band ``name`` (its name or an alias of ``tables/bands.csv``, any letter case).
 
     ``resolve_band("k") == "Ks"``.  An unknown name raises a one-line ``ValueError`` naming ``what``
     (e.g. the option) and the nearest known band."""
+    prefix = f"{what}: " if what else ""
     if not isinstance(name, str) or not name.strip():
-        raise ValueError(f"{what}: a band name is empty or not a string ({name!r})")
+        raise ValueError(f"{prefix}a band name is empty or not a string ({name!r})")
     key = name.strip()
     hit = _band_lookup().get(key.casefold())
     if hit is None:
-        raise ValueError(f"{what}: unknown band {key!r} (nearest known band: {_nearest_band(key)}; "
+        raise ValueError(f"{prefix}unknown band {key!r} (nearest known band: {_nearest_band(key)}; "
                          f"known: {', '.join(_registry())})")
     return hit
 
 
-def parse_bands(text, what: str = "--bands", n: int | None = None) -> tuple[str, ...]:
+def parse_bands(text, what: str | None = "--bands", n: int | None = None) -> tuple[str, ...]:
     """'V,i' (or a sequence) -> canonical band names ('V', 'I'); ``n`` = exact count wanted.
 
     Empty items, unknown bands and repeated bands are one-line ``ValueError``s naming ``what``."""
+    label = what or "the bands"
     items = [str(x) for x in text] if isinstance(text, (list, tuple)) else str(text).replace(";", ",").split(",")
     names = [x.strip() for x in items]
     if not names or any(not x for x in names):
-        raise ValueError(f"{what} must be comma-separated band names (got {text!r})")
+        raise ValueError(f"{label} must be comma-separated band names (got {text!r})")
     bands = tuple(resolve_band(x, what) for x in names)
     dup = sorted({b for b in bands if bands.count(b) > 1})
     if dup:
-        raise ValueError(f"{what}: band {dup[0]} is given twice (got {text!r})")
+        raise ValueError(f"{label}: band {dup[0]} is given twice (got {text!r})")
     if n is not None and len(bands) != n:
-        raise ValueError(f"{what} must be {n} band{'s' if n > 1 else ''} (got {text!r})")
+        raise ValueError(f"{label} must be {n} band{'s' if n > 1 else ''} (got {text!r})")
     return bands
 
 
