@@ -249,6 +249,9 @@ def write_chunked_mock(population, *, bands, obs, seed, out_dir, chunk_size, n_h
     if obs.window is not None or obs.completeness_m50 is not None:
         # estimate the kept fraction with a small pilot draw
         pilot = make_mock(population, bands=bands, rng=np.random.default_rng(seed), n_hb=500, obs=obs)
+        if len(pilot) == 0:  # the chunks could never be filled
+            raise ValueError("no star of a 500-HB-star pilot mock survives the window / completeness limit: "
+                             "the mock would be empty")
         hb_fraction = max(float(np.mean(np.asarray(pilot["phase"]) == "hb")), 1e-3) if len(pilot) else hb_fraction
     n_total = int(round(n_hb / hb_fraction))
     return run_chunked(n_total, int(chunk_size), _MockChunk(population, bands, obs, hb_fraction), out_dir,

@@ -185,6 +185,13 @@ def test_window_without_stars_is_an_error_and_writes_nothing(window, needles, tm
     assert not out.exists()
 
 
+def test_chunked_mock_with_an_empty_window_is_an_error_not_an_endless_loop(tmp_path, capsys):
+    out = tmp_path / "m.parquet"
+    _one_line_error(capsys, ["mock", *POP, "--eta", "0.45", "--n-hb", "500", "--bands", "V,I", "--window", "V:30:40",
+                             "--chunk-size", "200", "--out", str(out)], "survives the window", "empty")
+    assert not out.exists()
+
+
 # --------------------------------------------------------------------------- out-of-range eta
 def test_eta_that_strips_every_envelope_says_why(capsys):
     # issue 16: --eta 2.5 printed "— ± —" without a reason
