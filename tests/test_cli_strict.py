@@ -166,6 +166,15 @@ def test_eta_mass_loss_hb_masses_are_mutually_exclusive(cfg, argv, needles, tmp_
                     *needles)
 
 
+def test_n_hb_and_total_mass_are_mutually_exclusive(tmp_path, capsys):
+    (tmp_path / "c.toml").write_text("total-mass = 1e5\n")
+    base = ["mock", *POP, "--eta", "0.45", "--bands", "V,I", "--out", str(tmp_path / "m.ecsv")]
+    _one_line_error(capsys, [*base, "--n-hb", "10", "--total-mass", "1e5"], "not allowed with")
+    _one_line_error(capsys, [*base, "--n-hb", "10", "--config", str(tmp_path / "c.toml")],
+                    "--n-hb (command line)", "--total-mass (config file)")
+    assert not (tmp_path / "m.ecsv").exists()
+
+
 def test_config_value_overridden_by_the_same_flag_is_not_a_conflict(tmp_path, capsys):
     (tmp_path / "c.toml").write_text("eta = 0.2\n")
     assert main(["predict", "--feh", "-1", "--age", "12", "--config", str(tmp_path / "c.toml"), "--eta", "0.45",

@@ -32,7 +32,7 @@ def _depths(text, bands):
 
 def add_arguments(p):
     add_population_arguments(p)
-    n = p.add_argument_group("size (give one)")
+    n = p.add_argument_group("size (give one)").add_mutually_exclusive_group()
     n.add_argument("--n-hb", type=int, default=None, help="number of HB stars")
     n.add_argument("--total-mass", type=float, default=None, help="initial mass of the population (Msun)")
     o = p.add_argument_group("observation")
