@@ -70,6 +70,16 @@ def test_mock_columns_use_canonical_band_names(tmp_path, capsys):
                              "Ks=19", "--out", str(tmp_path / "n.ecsv")], "--depth band Ks is not among")
 
 
+def test_catalogue_band_columns_are_found_under_an_alias(tmp_path):
+    from hbmodel.io import read_catalog
+    Table({"K": [12.0, 12.5], "k_err": [0.02, 0.03], "J": [13.0, 13.6]}).write(tmp_path / "c.ecsv")
+    t = read_catalog(tmp_path / "c.ecsv", required=("Ks", "Ks_err", "J"))
+    assert list(t["Ks"]) == [12.0, 12.5] and list(t["Ks_err"]) == [0.02, 0.03]
+    Table({"K": [12.0], "ks": [12.1]}).write(tmp_path / "two.ecsv")  # ambiguous: no guess
+    with pytest.raises(ValueError, match="lacks required column"):
+        read_catalog(tmp_path / "two.ecsv", required=("Ks",))
+
+
 # --------------------------------------------------------------------------- --color
 def test_color_option_sets_the_field_box_colour_independently_of_band_order(tmp_path):
     # issue 16: colours were always FIRST-SECOND; --bands Ks,J --color J-Ks puts the box in J-Ks
