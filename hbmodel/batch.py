@@ -27,7 +27,15 @@ Every file is written atomically (temporary file in the same directory, then
 as its job finishes, so killing a run loses nothing that had finished; a re-run
 skips the finished jobs (unless ``force``) and retries the failed ones.  A
 finished job is only skipped when the options stored in its ``result.json``
-equal the current ones, so editing a row of the JOBS table re-runs that job.
+equal the current ones *and* its input files (``catalog``, ``masses``: see
+``input_keys`` of :func:`run_batch`) have the same SHA-256 content hash as when it
+ran, so editing a row of the JOBS table, or replacing a catalogue by a different
+file under the same name, re-runs that job.
+
+A JOBS table can be checked against a :class:`JobSchema` (``read_jobs(path,
+schema=...)``), as a config file is: an unknown column is an error naming the
+nearest valid one, required columns must be present and filled, and every cell
+is converted by its column's parser, errors naming the row and the column.
 
 Parallelism is joblib's (``n_jobs`` local processes, loky backend); with
 ``scheduler="tcp://host:port"`` the same ``joblib.Parallel`` call is sent to a
@@ -38,6 +46,8 @@ worker sees, and hbmodel must be installed on the workers.
 from __future__ import annotations
 
 import contextlib
+import difflib
+import hashlib
 import json
 import math
 import os
@@ -48,10 +58,12 @@ import time
 import traceback
 import zlib
 from collections.abc import Callable, Iterable, Mapping
+from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["read_jobs", "run_batch", "run_chunked", "job_seed", "flatten_result"]
+__all__ = ["read_jobs", "validate_jobs", "run_batch", "run_chunked", "job_seed", "flatten_result", "JobColumn", "JobSchema",
+           "as_float", "as_int", "as_text", "file_digest"]
 
 #: Seconds allowed to connect to a Dask scheduler before giving up.
 SCHEDULER_TIMEOUT_S = 3.0
@@ -175,8 +187,129 @@ def _validate_names(names: list[str]) -> None:
                          f"file systems: {'; '.join(clash)}")
 
 
+# --------------------------------------------------------------------------- job schemas
+def as_float(value) -> float:
+    """A finite number (a number, or text that reads as one)."""
+    if isinstance(value, (bool, np.bool_)):
+        raise ValueError(f"expected a number, got {value!r}")
+    try:
+        out = float(value.strip() if isinstance(value, str) else value)
+    except (TypeError, ValueError):
+        raise ValueError(f"expected a number, got {value!r}") from None
+    if not math.isfinite(out):
+        raise ValueError(f"expected a finite number, got {value!r}")
+    return out
+
+
+def as_int(value) -> int:
+    """An integer: ``3``, ``"3"`` or ``3.0``; ``3.5`` is an error (never truncated)."""
+    if isinstance(value, (bool, np.bool_)):
+        raise ValueError(f"expected an integer, got {value!r}")
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    try:
+        x = float(value.strip() if isinstance(value, str) else value)
+    except (TypeError, ValueError):
+        raise ValueError(f"expected an integer, got {value!r}") from None
+    if not (math.isfinite(x) and x == int(x)):
+        raise ValueError(f"expected an integer, got {value!r}")
+    return int(x)
+
+
+def as_text(value) -> str:
+    """Non-empty text."""
+    text = str(value).strip()
+    if not text:
+        raise ValueError("expected text, got an empty cell")
+    return text
+
+
+@dataclass(frozen=True)
+class JobColumn:
+    """One column of a JOBS table: its parser (value -> value, ``ValueError`` with the reason) and
+    whether every job must fill it."""
+
+    parse: Callable = as_float
+    required: bool = False
+    help: str = ""
+
+
+@dataclass(frozen=True)
+class JobSchema:
+    """The columns a task understands.  ``alternatives`` lists groups of column sets of which each
+    job must fill exactly one set completely, e.g. ``((("age",), ("age_min", "age_max")),)``."""
+
+    columns: Mapping[str, JobColumn]
+    alternatives: tuple = ()
+    _engine: Mapping[str, JobColumn] = field(default_factory=lambda: {
+        "name": JobColumn(as_text, True, "job name (directory name)"),
+        "seed": JobColumn(as_int, False, "random seed (default: crc32 of the name)")})
+
+    def all_columns(self) -> dict:
+        return {**self._engine, **self.columns}
+
+
+def _cell_missing(col, i) -> bool:
+    mask = getattr(col, "mask", None)
+    if mask is not None and np.ndim(mask) and bool(mask[i]):
+        return True
+    v = _py(col[i])
+    return v is None or (isinstance(v, str) and not v.strip())
+
+
+def validate_jobs(table, schema: JobSchema, where: str = "jobs table"):
+    """Check and convert a JOBS table against ``schema``; return a new table of converted values.
+
+    One-line ``ValueError`` for an unknown column (naming the nearest valid one), a missing
+    required column or cell, an unparsable cell (naming row and column) or a job that fills none
+    or several of the ``alternatives``."""
+    from astropy.table import MaskedColumn, Table
+
+    cols = schema.all_columns()
+    for c in table.colnames:
+        if c not in cols:
+            near = difflib.get_close_matches(c, list(cols), n=1, cutoff=0.5)
+            hint = f"did you mean {near[0]!r}? " if near else ""
+            raise ValueError(f"{where}: unknown column {c!r} ({hint}valid columns: {', '.join(cols)})")
+    for c, spec in cols.items():
+        if spec.required and c not in table.colnames:
+            raise ValueError(f"{where}: required column {c!r} is missing ({spec.help or 'needed by the task'})")
+    names = [str(_py(v)) for v in table["name"]]
+    out = Table()
+    for c in table.colnames:
+        values, mask = [], []
+        for i in range(len(table)):
+            row = f"{where}, row {i + 1} (job {names[i]!r}), column {c!r}"
+            if _cell_missing(table[c], i):
+                if cols[c].required:
+                    raise ValueError(f"{row}: empty, but every job needs it ({cols[c].help or 'required'})")
+                values.append(None)
+                mask.append(True)
+                continue
+            try:
+                values.append(cols[c].parse(_py(table[c][i])))
+            except ValueError as exc:
+                raise ValueError(f"{row}: {_one_line(str(exc))}") from None
+            mask.append(False)
+        present = [v for v in values if v is not None]
+        fill = present[0] if present else ""
+        data = [fill if v is None else v for v in values]
+        out[c] = MaskedColumn(data, mask=mask) if any(mask) else data
+    for group in schema.alternatives:
+        for i in range(len(table)):
+            filled = [s for s in group if all(c in out.colnames and not np.ma.is_masked(out[c][i]) for c in s)]
+            partial = [c for s in group for c in s if c in out.colnames and not np.ma.is_masked(out[c][i])]
+            labels = " or ".join("+".join(s) for s in group)
+            if len(filled) != 1 or len(partial) != len(filled[0] if filled else ()):
+                got = ", ".join(partial) or "none"
+                raise ValueError(f"{where}, row {i + 1} (job {names[i]!r}): give exactly one of {labels} "
+                                 f"(given: {got})")
+    out.meta.update(table.meta)
+    return out
+
+
 # --------------------------------------------------------------------------- jobs
-def read_jobs(path) -> "astropy.table.Table":  # noqa: F821
+def read_jobs(path, schema: JobSchema | None = None) -> "astropy.table.Table":  # noqa: F821
     """Read a JOBS table (CSV or ECSV), one row per job.
 
     Required column ``name`` (a safe directory name, unique); all other columns
@@ -184,7 +317,8 @@ def read_jobs(path) -> "astropy.table.Table":  # noqa: F821
     ``distance_modulus``, ``dm_sd``, ``ebv``, ``ebv_sd``, ...).  A relative
     ``catalog`` path is resolved relative to the JOBS file's directory.
     Raises ``ValueError`` (one line) for a missing/unreadable/malformed file,
-    a missing ``name`` column, an empty table, duplicate or unsafe names.
+    a missing ``name`` column, an empty table, duplicate or unsafe names; with a
+    ``schema``, also for anything :func:`validate_jobs` rejects.
     """
     from astropy.table import Table
 
@@ -231,6 +365,8 @@ def read_jobs(path) -> "astropy.table.Table":  # noqa: F821
             from astropy.table import MaskedColumn
             table["catalog"] = MaskedColumn(resolved, mask=np.asarray(mask))
     table.meta["jobs_file"] = str(path.resolve())
+    if schema is not None:
+        table = validate_jobs(table, schema, where=f"jobs file {path}")
     return table
 
 
@@ -311,7 +447,41 @@ def flatten_result(result: Mapping) -> dict:
     return flat
 
 
-def _run_one(job: dict, task: Callable, job_dir: str) -> dict:
+#: Job options naming input files whose content a finished job depends on (see :func:`file_digest`).
+INPUT_KEYS = ("catalog", "masses")
+
+
+def file_digest(path) -> str | None:
+    """SHA-256 of a file's bytes (``"sha256:<hex>"``); a directory (e.g. a Parquet dataset) hashes its
+    files' relative names and bytes in sorted order; a missing path gives None (the job will fail)."""
+    p = pathlib.Path(path)
+    h = hashlib.sha256()
+
+    def feed(f: pathlib.Path):
+        with open(f, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                h.update(block)
+
+    try:
+        if p.is_file():
+            feed(p)
+        elif p.is_dir():
+            for f in sorted(x for x in p.rglob("*") if x.is_file()):
+                h.update(str(f.relative_to(p)).encode() + b"\0")
+                feed(f)
+                h.update(b"\0")
+        else:
+            return None
+    except OSError:
+        return None
+    return "sha256:" + h.hexdigest()
+
+
+def _input_digests(job: dict, keys) -> dict:
+    return {k: file_digest(job[k]) for k in keys if isinstance(job.get(k), str) and job[k].strip()}
+
+
+def _run_one(job: dict, task: Callable, job_dir: str, inputs: dict | None = None) -> dict:
     """Worker side: run one job, write result.json / error.json atomically, return a record."""
     job_dir = pathlib.Path(job_dir)
     job_dir.mkdir(parents=True, exist_ok=True)
@@ -326,7 +496,7 @@ def _run_one(job: dict, task: Callable, job_dir: str) -> dict:
                   "traceback": traceback.format_exc(limit=20)}
         _atomic_write_json(job_dir / _ERROR, record)
         return {"name": job["name"], "status": "failed", "reason": record["reason"]}
-    record = {"name": job["name"], "status": "done", "job": job, "result": raw,
+    record = {"name": job["name"], "status": "done", "job": job, "inputs": inputs or {}, "result": raw,
               "elapsed_s": round(time.perf_counter() - t0, 3)}
     _atomic_write_json(job_dir / _RESULT, record)
     with contextlib.suppress(FileNotFoundError):
@@ -463,7 +633,7 @@ def _progress_bar(total: int, progress, desc: str):
 
 
 def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
-              progress: bool | None = None, force: bool = False):
+              progress: bool | None = None, force: bool = False, input_keys=INPUT_KEYS):
     """Run ``task`` on every job; return the summary table (also written to ``out_dir``).
 
     Parameters
@@ -477,6 +647,8 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
         the jobs then run on every worker of that cluster.
     progress : tqdm progress bar; ``None`` = only when stderr is a terminal.
     force : re-run jobs that already have a result.
+    input_keys : job options that name input files; a finished job is re-run when the SHA-256
+        of any of them differs from the one stored with its result (a replaced catalogue).
 
     Returns an astropy Table, one row per job in input order, with ``name``,
     ``status`` (``done`` / ``failed`` / ``skipped-done``), ``reason`` and the
@@ -492,10 +664,12 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
 
     records: dict[str, dict] = {}
     todo = []
+    digests = {job["name"]: _input_digests(job, input_keys) for job in rows}
     for job in rows:
         prev = None if force else _read_json(out_dir / job["name"] / _RESULT)
         if (isinstance(prev, dict) and prev.get("status") == "done"
-                and isinstance(prev.get("result"), dict) and _same_job(prev.get("job"), job)):
+                and isinstance(prev.get("result"), dict) and _same_job(prev.get("job"), job)
+                and prev.get("inputs") == digests[job["name"]]):
             records[job["name"]] = {"name": job["name"], "status": "skipped-done", "reason": "",
                                     "result": prev["result"]}
         else:
@@ -507,7 +681,7 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
             with _executor(n_jobs, scheduler) as nj:
                 parallel = joblib.Parallel(n_jobs=nj, batch_size=1, pre_dispatch="2*n_jobs",
                                            return_as="generator_unordered")
-                calls = (joblib.delayed(_run_one)(job, task, str(out_dir / job["name"]))
+                calls = (joblib.delayed(_run_one)(job, task, str(out_dir / job["name"]), digests[job["name"]])
                          for job in todo)
                 with _parallel_results(parallel, calls) as results:
                     for rec in results:

@@ -73,6 +73,9 @@ def hb_type_grid(fehs, series: str, series_values, *, age_gyr=12.5, alpha_fe=0.3
 def clump_grid(ages, fehs, bands, *, alpha_fe=0.0, eta=0.3, eta_sd=0.03, helium=None, law="reimers"):
     """Clump median absolute magnitude (and spread) per band over age x [Fe/H]."""
     from astropy.table import Table
+
+    from .photometry import get_band
+    bands = tuple(get_band(b).name for b in bands)  # canonical names (aliases such as K -> Ks)
     rows = []
     for age in ages:
         for feh in fehs:

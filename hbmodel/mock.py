@@ -45,6 +45,7 @@ class ObservationSpec:
     field_box: tuple | None = None      # (colour_min, colour_max, mag_bright, mag_faint)
     field_table: object = None           # astropy Table of field stars to resample
     window: tuple | None = None          # (band, bright, faint): keep only stars inside
+    field_colour: tuple | None = None    # (A, B): colour A - B of field_box (default: bands[0] - bands[1])
 
     def __post_init__(self):
         if not np.isfinite(self.distance_modulus):
@@ -123,11 +124,9 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
 
     if not isinstance(rng, np.random.Generator):
         raise ValueError("make_mock needs a numpy.random.Generator")
-    bands = tuple(bands)
+    bands = tuple(get_band(b).name for b in bands)  # canonical names (aliases such as K -> Ks)
     if not bands:
         raise ValueError("give at least one band")
-    for b in bands:
-        get_band(b)
     if (n_hb is None) == (total_mass_msun is None):
         raise ValueError("give exactly one of n_hb and total_mass_msun")
     if n_hb is None:
@@ -170,7 +169,8 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
                 raise ValueError("uniform field contamination needs two bands and a box "
                                  "(colour_min, colour_max, mag_bright, mag_faint)")
             cmin, cmax, mb, mf = obs.field_box
-            box = CMDBox(bands[0], (bands[0], bands[1]), (mb, mf), (cmin, cmax))
+            fcol = tuple(get_band(b).name for b in obs.field_colour) if obs.field_colour else bands[:2]
+            box = CMDBox(bands[0], fcol, (mb, mf), (cmin, cmax))
             field = uniform_contaminants(obs.n_field, rng, box)
             field = {b: field[b] if b in field else field[bands[0]] for b in bands}
         nf = obs.n_field
@@ -347,6 +347,9 @@ def plan_chunked_mock(population, *, bands, obs, seed, chunk_size, n_hb=None, to
         # the kept fraction from a small pilot draw
         pilot = make_mock(population, bands=bands, rng=np.random.default_rng(seed), n_hb=500,
                           obs=replace(obs, n_field=0))
+        if len(pilot) == 0:  # the partitions could never be filled
+            raise ValueError("no star of a 500-HB-star pilot mock survives the window / completeness limit: "
+                             "the mock would be empty")
         rows_per_hb = max(len(pilot) / 500.0, 1e-3)
     hb_per_part = max(1, int(round(int(chunk_size) / rows_per_hb)))
     n_parts = -(-n_hb // hb_per_part)
