@@ -20,6 +20,7 @@ def __getattr__(name):
         "read_jobs": ("batch", "read_jobs"), "run_batch": ("batch", "run_batch"),
         "run_chunked": ("batch", "run_chunked"), "read_catalog": ("io", "read_catalog"),
         "write_table": ("io", "write_table"), "absolute_magnitudes": ("photometry", "absolute_magnitudes"),
+        "resolve_band": ("photometry", "resolve_band"),
     }
     if name in lazy:
         import importlib

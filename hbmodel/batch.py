@@ -27,7 +27,15 @@ Every file is written atomically (temporary file in the same directory, then
 as its job finishes, so killing a run loses nothing that had finished; a re-run
 skips the finished jobs (unless ``force``) and retries the failed ones.  A
 finished job is only skipped when the options stored in its ``result.json``
-equal the current ones, so editing a row of the JOBS table re-runs that job.
+equal the current ones *and* its input files (``catalog``, ``masses``: see
+``input_keys`` of :func:`run_batch`) have the same SHA-256 content hash as when it
+ran, so editing a row of the JOBS table, or replacing a catalogue by a different
+file under the same name, re-runs that job.
+
+A JOBS table can be checked against a :class:`JobSchema` (``read_jobs(path,
+schema=...)``), as a config file is: an unknown column is an error naming the
+nearest valid one, required columns must be present and filled, and every cell
+is converted by its column's parser, errors naming the row and the column.
 
 Parallelism is joblib's (``n_jobs`` local processes, loky backend); with
 ``scheduler="tcp://host:port"`` the same ``joblib.Parallel`` call is sent to a
@@ -38,6 +46,8 @@ worker sees, and hbmodel must be installed on the workers.
 from __future__ import annotations
 
 import contextlib
+import difflib
+import hashlib
 import json
 import math
 import os
@@ -48,10 +58,12 @@ import time
 import traceback
 import zlib
 from collections.abc import Callable, Iterable, Mapping
+from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["read_jobs", "run_batch", "run_chunked", "job_seed", "flatten_result"]
+__all__ = ["read_jobs", "validate_jobs", "run_batch", "run_chunked", "job_seed", "flatten_result", "JobColumn", "JobSchema",
+           "as_float", "as_int", "as_text", "file_digest"]
 
 #: Seconds allowed to connect to a Dask scheduler before giving up.
 SCHEDULER_TIMEOUT_S = 3.0
@@ -77,6 +89,8 @@ def _reason(exc: BaseException) -> str:
 
 
 def _atomic_write_bytes(path: pathlib.Path, data: bytes) -> None:
+    from .io import _umask
+
     path = pathlib.Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
@@ -84,6 +98,7 @@ def _atomic_write_bytes(path: pathlib.Path, data: bytes) -> None:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600 files: give the user's usual mode
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(OSError):
@@ -97,12 +112,15 @@ def _atomic_write_json(path: pathlib.Path, obj) -> None:
 
 @contextlib.contextmanager
 def _atomic_path(path: pathlib.Path):
-    """Yield a temporary path next to ``path``; move it onto ``path`` on success."""
+    """Yield a temporary path next to ``path``; move it onto ``path`` on success (with the umask's mode)."""
+    from .io import _umask
+
     path = pathlib.Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=path.suffix, dir=path.parent)
     os.close(fd)
     try:
         yield pathlib.Path(tmp)
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(OSError):
@@ -169,8 +187,129 @@ def _validate_names(names: list[str]) -> None:
                          f"file systems: {'; '.join(clash)}")
 
 
+# --------------------------------------------------------------------------- job schemas
+def as_float(value) -> float:
+    """A finite number (a number, or text that reads as one)."""
+    if isinstance(value, (bool, np.bool_)):
+        raise ValueError(f"expected a number, got {value!r}")
+    try:
+        out = float(value.strip() if isinstance(value, str) else value)
+    except (TypeError, ValueError):
+        raise ValueError(f"expected a number, got {value!r}") from None
+    if not math.isfinite(out):
+        raise ValueError(f"expected a finite number, got {value!r}")
+    return out
+
+
+def as_int(value) -> int:
+    """An integer: ``3``, ``"3"`` or ``3.0``; ``3.5`` is an error (never truncated)."""
+    if isinstance(value, (bool, np.bool_)):
+        raise ValueError(f"expected an integer, got {value!r}")
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    try:
+        x = float(value.strip() if isinstance(value, str) else value)
+    except (TypeError, ValueError):
+        raise ValueError(f"expected an integer, got {value!r}") from None
+    if not (math.isfinite(x) and x == int(x)):
+        raise ValueError(f"expected an integer, got {value!r}")
+    return int(x)
+
+
+def as_text(value) -> str:
+    """Non-empty text."""
+    text = str(value).strip()
+    if not text:
+        raise ValueError("expected text, got an empty cell")
+    return text
+
+
+@dataclass(frozen=True)
+class JobColumn:
+    """One column of a JOBS table: its parser (value -> value, ``ValueError`` with the reason) and
+    whether every job must fill it."""
+
+    parse: Callable = as_float
+    required: bool = False
+    help: str = ""
+
+
+@dataclass(frozen=True)
+class JobSchema:
+    """The columns a task understands.  ``alternatives`` lists groups of column sets of which each
+    job must fill exactly one set completely, e.g. ``((("age",), ("age_min", "age_max")),)``."""
+
+    columns: Mapping[str, JobColumn]
+    alternatives: tuple = ()
+    _engine: Mapping[str, JobColumn] = field(default_factory=lambda: {
+        "name": JobColumn(as_text, True, "job name (directory name)"),
+        "seed": JobColumn(as_int, False, "random seed (default: crc32 of the name)")})
+
+    def all_columns(self) -> dict:
+        return {**self._engine, **self.columns}
+
+
+def _cell_missing(col, i) -> bool:
+    mask = getattr(col, "mask", None)
+    if mask is not None and np.ndim(mask) and bool(mask[i]):
+        return True
+    v = _py(col[i])
+    return v is None or (isinstance(v, str) and not v.strip())
+
+
+def validate_jobs(table, schema: JobSchema, where: str = "jobs table"):
+    """Check and convert a JOBS table against ``schema``; return a new table of converted values.
+
+    One-line ``ValueError`` for an unknown column (naming the nearest valid one), a missing
+    required column or cell, an unparsable cell (naming row and column) or a job that fills none
+    or several of the ``alternatives``."""
+    from astropy.table import MaskedColumn, Table
+
+    cols = schema.all_columns()
+    for c in table.colnames:
+        if c not in cols:
+            near = difflib.get_close_matches(c, list(cols), n=1, cutoff=0.5)
+            hint = f"did you mean {near[0]!r}? " if near else ""
+            raise ValueError(f"{where}: unknown column {c!r} ({hint}valid columns: {', '.join(cols)})")
+    for c, spec in cols.items():
+        if spec.required and c not in table.colnames:
+            raise ValueError(f"{where}: required column {c!r} is missing ({spec.help or 'needed by the task'})")
+    names = [str(_py(v)) for v in table["name"]]
+    out = Table()
+    for c in table.colnames:
+        values, mask = [], []
+        for i in range(len(table)):
+            row = f"{where}, row {i + 1} (job {names[i]!r}), column {c!r}"
+            if _cell_missing(table[c], i):
+                if cols[c].required:
+                    raise ValueError(f"{row}: empty, but every job needs it ({cols[c].help or 'required'})")
+                values.append(None)
+                mask.append(True)
+                continue
+            try:
+                values.append(cols[c].parse(_py(table[c][i])))
+            except ValueError as exc:
+                raise ValueError(f"{row}: {_one_line(str(exc))}") from None
+            mask.append(False)
+        present = [v for v in values if v is not None]
+        fill = present[0] if present else ""
+        data = [fill if v is None else v for v in values]
+        out[c] = MaskedColumn(data, mask=mask) if any(mask) else data
+    for group in schema.alternatives:
+        for i in range(len(table)):
+            filled = [s for s in group if all(c in out.colnames and not np.ma.is_masked(out[c][i]) for c in s)]
+            partial = [c for s in group for c in s if c in out.colnames and not np.ma.is_masked(out[c][i])]
+            labels = " or ".join("+".join(s) for s in group)
+            if len(filled) != 1 or len(partial) != len(filled[0] if filled else ()):
+                got = ", ".join(partial) or "none"
+                raise ValueError(f"{where}, row {i + 1} (job {names[i]!r}): give exactly one of {labels} "
+                                 f"(given: {got})")
+    out.meta.update(table.meta)
+    return out
+
+
 # --------------------------------------------------------------------------- jobs
-def read_jobs(path) -> "astropy.table.Table":  # noqa: F821
+def read_jobs(path, schema: JobSchema | None = None) -> "astropy.table.Table":  # noqa: F821
     """Read a JOBS table (CSV or ECSV), one row per job.
 
     Required column ``name`` (a safe directory name, unique); all other columns
@@ -178,7 +317,8 @@ def read_jobs(path) -> "astropy.table.Table":  # noqa: F821
     ``distance_modulus``, ``dm_sd``, ``ebv``, ``ebv_sd``, ...).  A relative
     ``catalog`` path is resolved relative to the JOBS file's directory.
     Raises ``ValueError`` (one line) for a missing/unreadable/malformed file,
-    a missing ``name`` column, an empty table, duplicate or unsafe names.
+    a missing ``name`` column, an empty table, duplicate or unsafe names; with a
+    ``schema``, also for anything :func:`validate_jobs` rejects.
     """
     from astropy.table import Table
 
@@ -225,6 +365,8 @@ def read_jobs(path) -> "astropy.table.Table":  # noqa: F821
             from astropy.table import MaskedColumn
             table["catalog"] = MaskedColumn(resolved, mask=np.asarray(mask))
     table.meta["jobs_file"] = str(path.resolve())
+    if schema is not None:
+        table = validate_jobs(table, schema, where=f"jobs file {path}")
     return table
 
 
@@ -305,7 +447,41 @@ def flatten_result(result: Mapping) -> dict:
     return flat
 
 
-def _run_one(job: dict, task: Callable, job_dir: str) -> dict:
+#: Job options naming input files whose content a finished job depends on (see :func:`file_digest`).
+INPUT_KEYS = ("catalog", "masses")
+
+
+def file_digest(path) -> str | None:
+    """SHA-256 of a file's bytes (``"sha256:<hex>"``); a directory (e.g. a Parquet dataset) hashes its
+    files' relative names and bytes in sorted order; a missing path gives None (the job will fail)."""
+    p = pathlib.Path(path)
+    h = hashlib.sha256()
+
+    def feed(f: pathlib.Path):
+        with open(f, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                h.update(block)
+
+    try:
+        if p.is_file():
+            feed(p)
+        elif p.is_dir():
+            for f in sorted(x for x in p.rglob("*") if x.is_file()):
+                h.update(str(f.relative_to(p)).encode() + b"\0")
+                feed(f)
+                h.update(b"\0")
+        else:
+            return None
+    except OSError:
+        return None
+    return "sha256:" + h.hexdigest()
+
+
+def _input_digests(job: dict, keys) -> dict:
+    return {k: file_digest(job[k]) for k in keys if isinstance(job.get(k), str) and job[k].strip()}
+
+
+def _run_one(job: dict, task: Callable, job_dir: str, inputs: dict | None = None) -> dict:
     """Worker side: run one job, write result.json / error.json atomically, return a record."""
     job_dir = pathlib.Path(job_dir)
     job_dir.mkdir(parents=True, exist_ok=True)
@@ -320,7 +496,7 @@ def _run_one(job: dict, task: Callable, job_dir: str) -> dict:
                   "traceback": traceback.format_exc(limit=20)}
         _atomic_write_json(job_dir / _ERROR, record)
         return {"name": job["name"], "status": "failed", "reason": record["reason"]}
-    record = {"name": job["name"], "status": "done", "job": job, "result": raw,
+    record = {"name": job["name"], "status": "done", "job": job, "inputs": inputs or {}, "result": raw,
               "elapsed_s": round(time.perf_counter() - t0, 3)}
     _atomic_write_json(job_dir / _RESULT, record)
     with contextlib.suppress(FileNotFoundError):
@@ -401,6 +577,52 @@ def _executor(n_jobs, scheduler):
         client.close()
 
 
+@contextlib.contextmanager
+def _workers_ignore_interrupts():
+    """Start worker processes with SIGINT blocked (the signal mask is inherited through fork and exec).
+
+    A Ctrl-C then reaches only this process, which stops the workers and reports one line, instead of
+    every worker printing its own traceback (a worker interrupted while still importing would).  A
+    Ctrl-C during the block is held and delivered when it ends.  Same idea as loky's resource tracker;
+    the resource trackers are started first because starting one unblocks SIGINT again."""
+    import signal
+    import threading
+
+    if not hasattr(signal, "pthread_sigmask") or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    from multiprocessing import resource_tracker as mp_tracker
+
+    from joblib.externals.loky.backend import resource_tracker as loky_tracker
+    for tracker in (mp_tracker, loky_tracker):
+        with contextlib.suppress(Exception):
+            tracker.ensure_running()
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
+@contextlib.contextmanager
+def _parallel_results(parallel, calls):
+    """Run ``parallel(calls)`` with its workers started under :func:`_workers_ignore_interrupts` and yield
+    the result generator; on the way out (finished, failed or interrupted) close it, which stops the
+    workers, without joblib's warning about cancelled tasks (the caller reports the one line)."""
+    import warnings
+
+    results = None
+    try:
+        with _workers_ignore_interrupts():  # joblib starts its workers at the call
+            results = parallel(calls)
+        yield results
+    finally:
+        if results is not None:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                results.close()
+
+
 def _progress_bar(total: int, progress, desc: str):
     show = sys.stderr.isatty() if progress is None else bool(progress)
     if not show or total == 0:
@@ -411,7 +633,7 @@ def _progress_bar(total: int, progress, desc: str):
 
 
 def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
-              progress: bool | None = None, force: bool = False):
+              progress: bool | None = None, force: bool = False, input_keys=INPUT_KEYS):
     """Run ``task`` on every job; return the summary table (also written to ``out_dir``).
 
     Parameters
@@ -425,6 +647,8 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
         the jobs then run on every worker of that cluster.
     progress : tqdm progress bar; ``None`` = only when stderr is a terminal.
     force : re-run jobs that already have a result.
+    input_keys : job options that name input files; a finished job is re-run when the SHA-256
+        of any of them differs from the one stored with its result (a replaced catalogue).
 
     Returns an astropy Table, one row per job in input order, with ``name``,
     ``status`` (``done`` / ``failed`` / ``skipped-done``), ``reason`` and the
@@ -440,10 +664,12 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
 
     records: dict[str, dict] = {}
     todo = []
+    digests = {job["name"]: _input_digests(job, input_keys) for job in rows}
     for job in rows:
         prev = None if force else _read_json(out_dir / job["name"] / _RESULT)
         if (isinstance(prev, dict) and prev.get("status") == "done"
-                and isinstance(prev.get("result"), dict) and _same_job(prev.get("job"), job)):
+                and isinstance(prev.get("result"), dict) and _same_job(prev.get("job"), job)
+                and prev.get("inputs") == digests[job["name"]]):
             records[job["name"]] = {"name": job["name"], "status": "skipped-done", "reason": "",
                                     "result": prev["result"]}
         else:
@@ -455,15 +681,16 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
             with _executor(n_jobs, scheduler) as nj:
                 parallel = joblib.Parallel(n_jobs=nj, batch_size=1, pre_dispatch="2*n_jobs",
                                            return_as="generator_unordered")
-                calls = (joblib.delayed(_run_one)(job, task, str(out_dir / job["name"]))
+                calls = (joblib.delayed(_run_one)(job, task, str(out_dir / job["name"]), digests[job["name"]])
                          for job in todo)
-                for rec in parallel(calls):
-                    records[rec["name"]] = rec
-                    if bar is not None:
-                        bar.update(1)
-                        n_fail = sum(r["status"] == "failed" for r in records.values())
-                        if n_fail:
-                            bar.set_postfix(failed=n_fail)
+                with _parallel_results(parallel, calls) as results:
+                    for rec in results:
+                        records[rec["name"]] = rec
+                        if bar is not None:
+                            bar.update(1)
+                            n_fail = sum(r["status"] == "failed" for r in records.values())
+                            if n_fail:
+                                bar.set_postfix(failed=n_fail)
     finally:
         if bar is not None:
             bar.close()
@@ -553,24 +780,36 @@ def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
 
 
 # --------------------------------------------------------------------------- chunks
-def _write_chunk(make_chunk: Callable, index: int, n: int, child, path: str) -> str:
-    """Worker side: build one chunk and write it as a Parquet partition, atomically."""
+def _write_chunk(make_chunk: Callable, index: int, n: int, child, path: str, exact_rows: bool = True) -> str:
+    """Worker side: build one chunk, check the free disk, write it as a Parquet partition, atomically."""
     import pyarrow as pa
     import pyarrow.parquet as pq
+
+    from .resources import check_free_disk
 
     table = make_chunk(index, n, child)
     if not isinstance(table, pa.Table):
         raise ValueError(f"make_chunk must return a pyarrow.Table, got {type(table).__name__}")
-    if table.num_rows != n:
+    if exact_rows and table.num_rows != n:
         raise ValueError(f"make_chunk({index}) returned {table.num_rows} rows, expected {n}")
     path = pathlib.Path(path)
+    # the uncompressed Arrow size bounds the Parquet file (measured: Parquet is 0.8-1.0 of it here)
+    check_free_disk(path.parent, table.nbytes, f"partition {path.name}")
     with _atomic_path(path) as tmp:
         pq.write_table(table, tmp)
     return str(path)
 
 
+def _remove_partial_parts(out_dir: pathlib.Path) -> None:
+    """Remove temporary partition files (``.part-NNNNN.*.parquet``) left by workers that were stopped."""
+    for p in out_dir.glob(".part-*.parquet"):
+        with contextlib.suppress(OSError):
+            p.unlink()
+
+
 def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *, n_jobs: int = 1,
-                scheduler=None, force: bool = False, seed: int = 0) -> list[pathlib.Path]:
+                scheduler=None, force: bool = False, seed: int = 0, balanced: bool = False,
+                exact_rows: bool = True) -> list[pathlib.Path]:
     """Generate a survey-size table in Parquet partitions, one chunk per worker at a time.
 
     ``make_chunk(index, n, seed_sequence_child) -> pyarrow.Table`` builds chunk
@@ -580,9 +819,18 @@ def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *,
     ... atomically; existing parts are skipped (resumable) unless ``force``.
     A re-run with different ``n_total``/``chunk_size``/``seed`` into the same
     directory is refused (use ``force=True`` or a new directory).
+
+    The ``n_chunks = ceil(n_total / chunk_size)`` chunk sizes sum to ``n_total``: ``chunk_size`` each and
+    the remainder last, or with ``balanced`` sizes that differ by at most one.  With ``exact_rows=False``,
+    ``n`` counts units of the caller's choosing (e.g. HB stars of a mock) and the row count is not checked.
+    Before each partition is written its worker checks the free disk; if it runs short (or the run is
+    interrupted) the run stops with a one-line error, and no partial partition file is left (finished
+    partitions stay; a re-run resumes).
     Returns the list of part paths in chunk order.
     """
     import joblib
+
+    from .resources import ResourceError
 
     for label, v in (("n_total", n_total), ("chunk_size", chunk_size)):
         if not isinstance(v, (int, np.integer)) or isinstance(v, bool) or v < 1:
@@ -598,6 +846,8 @@ def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *,
     out_dir = pathlib.Path(out_dir)
     _prepare_out_dir(out_dir, _CHUNK_MANIFEST)
     manifest = {"n_total": n_total, "chunk_size": chunk_size, "seed": seed, "n_chunks": n_chunks}
+    if balanced:
+        manifest["balanced"] = True
     old = _read_json(out_dir / _CHUNK_MANIFEST)
     if not force and isinstance(old, dict) and old and old != manifest:
         raise ValueError(f"{out_dir} holds chunks made with {old}; asked for {manifest} "
@@ -609,13 +859,27 @@ def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *,
             if p not in paths:
                 p.unlink()
     children = np.random.SeedSequence(seed).spawn(n_chunks)
-    sizes = [min(chunk_size, n_total - i * chunk_size) for i in range(n_chunks)]
+    if balanced:
+        base, extra = divmod(n_total, n_chunks)
+        sizes = [base + (i < extra) for i in range(n_chunks)]
+    else:
+        sizes = [min(chunk_size, n_total - i * chunk_size) for i in range(n_chunks)]
     todo = [i for i in range(n_chunks) if force or not paths[i].exists()]
     if todo:
-        with _executor(n_jobs, scheduler) as nj:
-            parallel = joblib.Parallel(n_jobs=nj, batch_size=1, pre_dispatch="n_jobs",
-                                       return_as="generator_unordered")
-            for _ in parallel(joblib.delayed(_write_chunk)(make_chunk, i, sizes[i], children[i],
-                                                           str(paths[i])) for i in todo):
-                pass
+        try:
+            with _executor(n_jobs, scheduler) as nj:
+                parallel = joblib.Parallel(n_jobs=nj, batch_size=1, pre_dispatch="n_jobs",
+                                           return_as="generator_unordered")
+                calls = (joblib.delayed(_write_chunk)(make_chunk, i, sizes[i], children[i], str(paths[i]), exact_rows)
+                         for i in todo)
+                with _parallel_results(parallel, calls) as results:
+                    for _ in results:
+                        pass
+        except BaseException as exc:
+            _remove_partial_parts(out_dir)
+            if isinstance(exc, ResourceError):
+                done = sum(p.exists() for p in paths)
+                raise ResourceError(f"{exc}; stopped with {done} of {n_chunks} partitions written in {out_dir} "
+                                    "(free some space and re-run the same command to resume)") from None
+            raise
     return paths

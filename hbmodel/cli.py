@@ -15,6 +15,7 @@ import importlib
 import sys
 
 from . import __version__
+from .commands._common import add_resource_arguments
 
 #: Sub-command modules, in the order ``hbmodel --help`` lists them.
 COMMANDS = ("predict", "mock", "fit", "distance", "classify", "batch", "demo")
@@ -54,17 +55,76 @@ def _apply_config(parser: argparse.ArgumentParser, argv: list[str], cfg: dict):
     for key, value in cfg.items():
         action = known[key]
         if isinstance(value, dict) or (isinstance(value, list) and any(isinstance(v, (dict, list)) for v in value)):
-            raise UserError(f"config key {key!r}: expected a number, string, boolean or list of them")
+            raise UserError(f"config key {_key(key)}: expected a number, string, boolean or list of them")
         if isinstance(value, list) and action.nargs in (None, "?"):
             value = ",".join(str(v) for v in value)
-        if action.type is not None and isinstance(value, str):
-            value = action.type(value)
-        defaults[key] = value
+        defaults[key] = _config_value(action, key, value)
         if action.required:
             action.required = False
     parser.set_defaults(**defaults)
     missing = [a.dest for a in parser._actions if a.required and a.dest not in defaults]
     return missing
+
+
+def _key(dest: str) -> str:
+    return repr(dest.replace("_", "-"))
+
+
+def _config_value(action: argparse.Action, key: str, value):
+    """Check and convert one config value as the command line would, naming the key on failure.
+
+    Integers must be integers (``n-hb = 10.7`` is an error, never truncated); booleans are for
+    flags only; numbers are for numeric options; ``choices`` are enforced."""
+    what = f"config key {_key(key)}"
+    if action.nargs == 0:  # a flag (store_true / store_false)
+        if not isinstance(value, bool):
+            raise UserError(f"{what}: expected true or false, got {value!r}")
+        return value
+    if isinstance(value, bool):
+        raise UserError(f"{what}: expected a value, not a boolean ({str(value).lower()})")
+    if action.type is int:
+        if isinstance(value, float):
+            raise UserError(f"{what}: expected an integer, got {value!r}")
+        if isinstance(value, str):
+            try:
+                value = int(value.strip())
+            except ValueError:
+                raise UserError(f"{what}: expected an integer, got {value!r}") from None
+    elif action.type is float:
+        try:
+            value = float(value)
+        except (TypeError, ValueError):
+            raise UserError(f"{what}: expected a number, got {value!r}") from None
+    elif action.type is not None and isinstance(value, str):
+        try:
+            value = action.type(value)
+        except (TypeError, ValueError, argparse.ArgumentTypeError) as exc:
+            raise UserError(f"{what}: {exc}") from None
+    elif action.type is None and not isinstance(value, str):
+        value = str(value)  # string options (file names, band lists, ranges) given as TOML numbers
+    if action.choices is not None and value not in action.choices:
+        raise UserError(f"{what}: {value!r} is not one of {', '.join(map(str, action.choices))}")
+    return value
+
+
+def _check_exclusive(sub: argparse.ArgumentParser, argv: list[str], cfg: dict) -> None:
+    """Mutually exclusive options stay exclusive when one (or both) comes from the config file.
+
+    argparse checks the command line itself; here an option is 'given' if it is in the config file
+    (with a value) or on the command line (found by parsing into a namespace of sentinels)."""
+    unset = object()
+    ns = argparse.Namespace(**{a.dest: unset for a in sub._actions if a.dest != argparse.SUPPRESS})
+    sub.parse_known_args(argv, ns)
+    for group in sub._mutually_exclusive_groups:
+        given = []
+        for a in group._group_actions:
+            if getattr(ns, a.dest, unset) is not unset:
+                given.append(f"{a.option_strings[0]} (command line)")
+            elif cfg.get(a.dest) is not None:
+                given.append(f"{a.option_strings[0]} (config file)")
+        if len(given) > 1:
+            names = "/".join(a.option_strings[0] for a in group._group_actions)
+            raise UserError(f"{names} are mutually exclusive: got {' and '.join(given)}")
 
 
 def build_parser() -> tuple[argparse.ArgumentParser, dict]:
@@ -85,22 +145,26 @@ def build_parser() -> tuple[argparse.ArgumentParser, dict]:
         p.add_argument("--config", metavar="FILE.toml",
                        help="read options from a TOML file (command-line flags override)")
         mod.add_arguments(p)
+        add_resource_arguments(p)
         modules[mod.NAME] = (mod, p)
     return parser, modules
 
 
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
-    parser, modules = build_parser()
     try:
+        parser, modules = build_parser()
         # First pass: find the command and a possible --config file.
         command = argv[0] if argv and not argv[0].startswith("-") else None
         if command in modules:
             mod, sub = modules[command]
             cfg_path = _find_config(argv)
-            if cfg_path:
-                _apply_config(sub, argv, _load_config(cfg_path))
+            cfg = _load_config(cfg_path) if cfg_path else {}
+            if cfg:
+                _apply_config(sub, argv, cfg)
         args = parser.parse_args(argv)
+        if command in modules and cfg:
+            _check_exclusive(modules[command][1], argv[1:], cfg)
         if not args.command:
             parser.print_help()
             return EXIT_USAGE

@@ -126,6 +126,11 @@ def measure_distance(mag, pop: Population, band: str, *, colour_mags=None, colou
     spread of clump models over the age/[Fe/H] prior) to the calibration floor.
     """
     from .extinction import extinction_ratio
+    from .photometry import get_band
+    band = get_band(band).name  # canonical names (aliases such as K -> Ks)
+    colour = tuple(get_band(b).name for b in colour) if colour else colour
+    if colour_mags is not None:
+        colour_mags = {get_band(b).name: v for b, v in colour_mags.items()}
     mag = np.asarray(mag, float)
     if mag_err is not None:
         mag_err = np.asarray(mag_err, float)[np.isfinite(mag)]

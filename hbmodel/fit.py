@@ -143,8 +143,13 @@ class MassLossFit:
     model : "spread" | "helium" | "both"
     bands : (str, str)
         Plane (first - second, first); catalogue columns ``<band>`` and ``<band>_err``.
+    colour : (str, str) or None
+        The colour axis ``A - B`` as the user sees it (``region``, ``colour_offset``, plots); the two
+        ``bands`` in either order (default: first - second).  The likelihood does not depend on this
+        choice (a reflection of the colour axis).
     region : (cmin, cmax, mbright, mfaint) or None
-        Observed colour / magnitude box; default = the model HB/clump extent plus margins.
+        Observed colour / magnitude box in the ``colour`` convention; default = the model HB/clump
+        extent plus margins.
     completeness : callable(mag) -> probability, optional
         Detection probability vs observed first-band magnitude (e.g. :class:`hbmodel.observe.Completeness`).
     zero_points : bool
@@ -159,11 +164,12 @@ class MassLossFit:
 
     def __init__(self, population=None, priors=None, model="spread", *, bands=("V", "I"), region=None,
                  completeness=None, zero_points=True, sampler="emcee", compare_models=True, n_walkers=16,
-                 max_steps=6000, chunk=500, seed=0, rv=3.1, law="F99", error_model=None):
+                 max_steps=6000, chunk=500, seed=0, rv=3.1, law="F99", error_model=None, colour=None):
         self.population = population
         self.priors = priors
         self.model = model
         self.bands = bands
+        self.colour = colour
         self.region = region
         self.completeness = completeness
         self.zero_points = zero_points
@@ -181,7 +187,8 @@ class MassLossFit:
     def get_params(self, deep=True):
         return {k: getattr(self, k) for k in ("population", "priors", "model", "bands", "region", "completeness",
                                               "zero_points", "sampler", "compare_models", "n_walkers",
-                                              "max_steps", "chunk", "seed", "rv", "law", "error_model")}
+                                              "max_steps", "chunk", "seed", "rv", "law", "error_model",
+                                              "colour")}
 
     def set_params(self, **kw):
         for k, v in kw.items():
@@ -205,12 +212,17 @@ class MassLossFit:
         pri = self.priors if self.priors is not None else Priors()
         if not isinstance(pri, Priors):
             raise ValueError("priors must be a hbmodel.fit.Priors")
-        bands = tuple(self.bands)
+        from .photometry import get_band
+        bands = tuple(get_band(b).name for b in self.bands)  # canonical names (aliases such as K -> Ks)
         if len(bands) != 2 or bands[0] == bands[1]:
             raise ValueError("give two different bands, e.g. ('V', 'I')")
-        from .photometry import get_band
-        for b in bands:
-            get_band(b)
+        colour = bands if self.colour is None else tuple(get_band(b).name for b in self.colour)
+        if len(colour) != 2 or set(colour) != set(bands):
+            raise ValueError(f"the colour {'-'.join(colour)} must be made of the fitted bands "
+                             f"{bands[0]} and {bands[1]} (in either order)")
+        self.colour_ = colour
+        # internally the colour is always bands[0] - bands[1]; -1 = the user's colour is its reflection
+        self._colour_sign = 1.0 if colour == bands else -1.0
         return pri, bands
 
     def _prepare_cmd(self, catalog, pri, bands):
@@ -268,6 +280,8 @@ class MassLossFit:
             region = tuple(float(v) for v in self.region)
             if len(region) != 4 or not all(np.isfinite(region)) or region[1] <= region[0] or region[3] <= region[2]:
                 raise ValueError("region must be (colour_min, colour_max, mag_bright, mag_faint) with min < max")
+            if self._colour_sign < 0:  # the user's colour box -> the internal bands[0] - bands[1] colour
+                region = (-region[1], -region[0], region[2], region[3])
             if region[3] - s_mu[1] > m_base:
                 raise ValueError(f"region reaches fainter than the modelled RGB base (M = {m_base:.2f} "
                                  f"+ DM = {m_base + s_mu[1]:.2f}): sub-giants are not modelled")
@@ -276,7 +290,8 @@ class MassLossFit:
         mag = mags[bands[0]]
         inr = (colour >= region[0]) & (colour <= region[1]) & (mag >= region[2]) & (mag <= region[3])
         if not inr.any():
-            raise ValueError(f"no stars in the fitted region (colour {region[0]:.2f}..{region[1]:.2f}, "
+            c_lo, c_hi = self._user_region(region)[:2]
+            raise ValueError(f"no stars in the fitted region ({'-'.join(self.colour_)} {c_lo:.2f}..{c_hi:.2f}, "
                              f"{bands[0]} {region[2]:.2f}..{region[3]:.2f})")
         near = (mag >= region[2] - 1.0) & (mag <= region[3] + 1.0)
         em = self.error_model or ErrorModel.from_catalog({b: mags[b][near] for b in bands},
@@ -737,8 +752,8 @@ class MassLossFit:
                     x[bad] = mean[bad] + rng.standard_normal((bad.sum(), 4)) @ L.T
                 x[:, 1] = np.maximum(x[:, 1], 0.0)
             out["distance_modulus"], out["ebv"] = x[:, 0], x[:, 1]
-            if self.zero_points:
-                out["colour_offset"], out["mag_offset"] = x[:, 2], x[:, 3]
+            if self.zero_points:  # the colour zero point in the user's colour convention
+                out["colour_offset"], out["mag_offset"] = self._colour_sign * x[:, 2], x[:, 3]
         return out
 
     def _compare(self, names, x_map):
@@ -805,7 +820,8 @@ class MassLossFit:
         out = dict(self.summary())
         out.update({
             "model": self.model, "n_stars": self.n_stars_, "n_masses": self.n_masses_, "sampler": self.sampler,
-            "bands": list(self.bands), "region": list(self.region_) if self._has_cmd else None,
+            "bands": list(self.bands), "colour": "-".join(self.colour_),
+            "region": list(self._user_region(self.region_)) if self._has_cmd else None,
             "convergence": {"autocorr_time": self.autocorr_time_, "n_eff": self.n_eff_,
                             "acceptance": self.acceptance_fraction_, "n_steps": self.n_steps_,
                             "converged": self.converged_},
@@ -823,6 +839,12 @@ class MassLossFit:
             out["warnings"].append(f"poor fit: posterior-predictive p = {gof['p_value']:.3f} of the Hess "
                                    "deviance (the model does not describe the CMD)")
         return out
+
+    def _user_region(self, region):
+        """An internal (bands[0] - bands[1]) region in the user's ``colour`` convention."""
+        if self._colour_sign > 0:
+            return tuple(region)
+        return (-region[1], -region[0], region[2], region[3])
 
     def _binned_model(self, theta, ce, me, sub=6):
         """Model counts integrated over each Hess bin (``sub`` x ``sub`` midpoints per bin: a narrow
@@ -915,9 +937,11 @@ class MassLossFit:
             ax = fig.add_subplot(1, 3, i + 1)
             kw = dict(cmap="RdBu_r", vmin=-4, vmax=4) if i == 2 else dict(cmap="viridis", vmin=0,
                                                                           vmax=max(obs.max(), 1))
-            im = ax.imshow(img, origin="upper", aspect="auto", extent=(ce[0], ce[-1], me[-1], me[0]), **kw)
+            sgn = self._colour_sign  # a reflected colour axis shows the image mirrored
+            im = ax.imshow(img if sgn > 0 else img[:, ::-1], origin="upper", aspect="auto",
+                           extent=((ce[0], ce[-1]) if sgn > 0 else (-ce[-1], -ce[0])) + (me[-1], me[0]), **kw)
             ax.set_title(title)
-            ax.set_xlabel(f"{self.bands[0]}-{self.bands[1]}")
+            ax.set_xlabel("-".join(self.colour_))
             if i == 0:
                 ax.set_ylabel(self.bands[0])
             fig.colorbar(im, ax=ax)
@@ -929,12 +953,15 @@ class MassLossFit:
         ce, me, obs, model = self.hess((80, 80))
         fig = fig or plt.figure(figsize=(5, 6))
         ax = fig.add_subplot(1, 1, 1)
-        ax.plot(self.data_["colour"], self.data_["mag"], "k.", ms=2, alpha=0.6, label="catalogue")
+        sgn = self._colour_sign
+        ax.plot(sgn * self.data_["colour"], self.data_["mag"], "k.", ms=2, alpha=0.6, label="catalogue")
         cc, mc = 0.5 * (ce[1:] + ce[:-1]), 0.5 * (me[1:] + me[:-1])
+        if sgn < 0:  # increasing colours for the contour grid
+            cc, model = -cc[::-1], model[:, ::-1]
         lv = np.quantile(model[model > 0], [0.5, 0.8, 0.95]) if np.any(model > 0) else [1]
         ax.contour(cc, mc, model, levels=np.unique(lv), colors="C1")
         ax.set_ylim(me[-1], me[0])
-        ax.set_xlabel(f"{self.bands[0]}-{self.bands[1]}")
+        ax.set_xlabel("-".join(self.colour_))
         ax.set_ylabel(self.bands[0])
         ax.set_title("catalogue with the MAP model density (contours)")
         return fig

@@ -214,6 +214,7 @@ def _read_catalog(path, columns, required):
             table[name].description = col.description
 
     required = [str(r) for r in required]
+    _band_alias_columns(table, required)
     missing = [r for r in required if r not in table.colnames]
     if missing:
         raise ValueError(f"catalogue {path.name} lacks required column(s): {_list_names(missing)} "
@@ -223,6 +224,25 @@ def _read_catalog(path, columns, required):
     if bad:
         raise ValueError(f"catalogue {path.name}: required column(s) not numeric: {', '.join(bad)}")
     return table
+
+
+def _band_alias_columns(table, required) -> None:
+    """A required band column (``Ks``, ``Ks_err``) absent from the file is taken from the one column named
+    by an alias of that band, in any letter case (``K``, ``ks``, ``K_err``); renamed in place."""
+    from .photometry import BAND_NAMES, get_band
+    folded = {}
+    for c in table.colnames:
+        folded.setdefault(c.casefold(), []).append(c)
+    for req in required:
+        if req in table.colnames:
+            continue
+        base, suffix = (req[:-4], "_err") if req.endswith("_err") else (req, "")
+        if base not in BAND_NAMES:
+            continue
+        band = get_band(base)
+        hits = sorted({c for name in (band.name, *band.aliases) for c in folded.get((name + suffix).casefold(), [])})
+        if len(hits) == 1:
+            table.rename_column(hits[0], req)
 
 
 def _read_parquet(path: Path):

@@ -14,14 +14,15 @@ reach the RGB tip is ``M_tot xi(m_tip) |dm_tip/dt|``.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from .imf import imf_number_density
 from .population import Population
 
-__all__ = ["ObservationSpec", "make_mock", "star_sampler", "expected_hb_count", "imf_number_density"]
+__all__ = ["ObservationSpec", "make_mock", "star_sampler", "expected_hb_count", "imf_number_density",
+           "stars_per_hb_star", "mock_estimate", "ChunkPlan", "plan_chunked_mock", "write_chunked_mock"]
 
 
 @dataclass(frozen=True)
@@ -44,6 +45,7 @@ class ObservationSpec:
     field_box: tuple | None = None      # (colour_min, colour_max, mag_bright, mag_faint)
     field_table: object = None           # astropy Table of field stars to resample
     window: tuple | None = None          # (band, bright, faint): keep only stars inside
+    field_colour: tuple | None = None    # (A, B): colour A - B of field_box (default: bands[0] - bands[1])
 
     def __post_init__(self):
         if not np.isfinite(self.distance_modulus):
@@ -122,11 +124,9 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
 
     if not isinstance(rng, np.random.Generator):
         raise ValueError("make_mock needs a numpy.random.Generator")
-    bands = tuple(bands)
+    bands = tuple(get_band(b).name for b in bands)  # canonical names (aliases such as K -> Ks)
     if not bands:
         raise ValueError("give at least one band")
-    for b in bands:
-        get_band(b)
     if (n_hb is None) == (total_mass_msun is None):
         raise ValueError("give exactly one of n_hb and total_mass_msun")
     if n_hb is None:
@@ -136,14 +136,9 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
             raise ValueError(f"a population of {total_mass_msun:g} Msun holds no HB star")
     if int(n_hb) <= 0:
         raise ValueError("the number of HB stars must be positive")
-    rgb_range = None
-    if obs.window is not None:
-        wband, bright, faint = obs.window
-        if wband not in bands:
-            raise ValueError(f"window band {wband} is not among the mock's bands")
-        # RGB luminosities that can land in the window (generous bolometric-correction margin)
-        abs_b, abs_f = bright - obs.distance_modulus - 0.5, faint - obs.distance_modulus + 3.0
-        rgb_range = ((4.74 - abs_f) / 2.5, (4.74 - abs_b) / 2.5 + 0.6)
+    if obs.window is not None and obs.window[0] not in bands:
+        raise ValueError(f"window band {obs.window[0]} is not among the mock's bands")
+    rgb_range = _rgb_logl_range(obs)
     sampler = star_sampler(population, bands, obs.rv, obs.law)
     per_star = obs.ebv_sd > 0 or obs.binary_fraction > 0
     d = sampler.draw(int(n_hb), rng, rgb_logl_range=rgb_range, distance_modulus=obs.distance_modulus,
@@ -174,7 +169,8 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
                 raise ValueError("uniform field contamination needs two bands and a box "
                                  "(colour_min, colour_max, mag_bright, mag_faint)")
             cmin, cmax, mb, mf = obs.field_box
-            box = CMDBox(bands[0], (bands[0], bands[1]), (mb, mf), (cmin, cmax))
+            fcol = tuple(get_band(b).name for b in obs.field_colour) if obs.field_colour else bands[:2]
+            box = CMDBox(bands[0], fcol, (mb, mf), (cmin, cmax))
             field = uniform_contaminants(obs.n_field, rng, box)
             field = {b: field[b] if b in field else field[bands[0]] for b in bands}
         nf = obs.n_field
@@ -211,45 +207,174 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     return t
 
 
-class _MockChunk:
-    """Picklable chunk builder for :func:`hbmodel.batch.run_chunked` (one Parquet partition)."""
+def _rgb_logl_range(obs: ObservationSpec):
+    """RGB luminosities that can land in the magnitude window of ``obs`` (None: the whole RGB), with a
+    generous bolometric-correction margin."""
+    if obs.window is None:
+        return None
+    _wband, bright, faint = obs.window
+    abs_b, abs_f = bright - obs.distance_modulus - 0.5, faint - obs.distance_modulus + 3.0
+    return (4.74 - abs_f) / 2.5, (4.74 - abs_b) / 2.5 + 0.6
 
-    def __init__(self, population, bands, obs, hb_fraction):
-        self.population, self.bands, self.obs, self.hb_fraction = population, tuple(bands), obs, hb_fraction
+
+def stars_per_hb_star(population: Population, obs: ObservationSpec = ObservationSpec()) -> float:
+    """Expected number of drawn RGB + HB + early-AGB stars per HB star (RGB restricted to the stretch a
+    magnitude window can see), i.e. the catalogue rows before completeness and window cuts."""
+    rates = population.phase_times()
+    tot_hb = float(rates["hb"].sum())
+    if tot_hb <= 0:
+        raise ValueError("no star of this population reaches the HB (all envelopes lost on the RGB)")
+    rgb_range = _rgb_logl_range(obs)
+    n = 0.0
+    for i, sub in enumerate(population.subpopulations):
+        lo, hi = population._rgb_time_window(sub, rgb_range)
+        n += rates["rgb"][i] * (hi - lo) + rates["hb"][i] + rates["agb"][i]
+    return n / tot_hb
+
+
+def mock_columns(bands) -> int:
+    """Number of columns of a mock catalogue: 9 star columns plus 3 per band (observed, error, true)."""
+    return 9 + 3 * len(tuple(bands))
+
+
+#: Memory of a CMD plot per plotted star (measured ~140 bytes with 5x10^5 stars), rounded up.
+PLOT_BYTES_PER_STAR = 200.0
+
+
+def mock_estimate(population: Population, *, bands, obs: ObservationSpec = ObservationSpec(), out=None,
+                  n_hb=None, total_mass_msun=None, plot=False):
+    """:class:`hbmodel.resources.Estimate` of :func:`make_mock` and of writing its table to ``out`` (none:
+    the table stays in memory) and, with ``plot``, of its CMD plot, from the expected number of stars (a
+    total mass counts through :func:`expected_hb_count`)."""
+    from pathlib import Path
+
+    from .resources import Estimate, table_disk_bytes, table_memory_bytes
+    if n_hb is None:
+        n_hb = expected_hb_count(population, total_mass_msun)
+    rows = float(n_hb) * stars_per_hb_star(population, obs) + obs.n_field
+    cols = mock_columns(bands)
+    plot_bytes = PLOT_BYTES_PER_STAR * rows if plot else 0.0
+    if out is None:
+        return Estimate("this mock", memory_bytes=table_memory_bytes(rows, cols) + plot_bytes,
+                        detail=f"about {rows:.3g} stars")
+    return Estimate("this mock", memory_bytes=table_memory_bytes(rows, cols, out) + plot_bytes,
+                    disk_bytes=table_disk_bytes(rows, cols, out), disk_path=Path(out).parent,
+                    detail=f"about {rows:.3g} stars")
+
+
+def _split(total: int, n_parts: int) -> list[int]:
+    """``total`` split into ``n_parts`` integers that differ by at most one and sum to ``total``."""
+    base, extra = divmod(int(total), int(n_parts))
+    return [base + (i < extra) for i in range(int(n_parts))]
+
+
+class _MockChunk:
+    """Picklable partition builder for :func:`hbmodel.batch.run_chunked`: partition ``index`` holds the stars
+    of exactly ``n`` drawn HB stars and ``field_sizes[index]`` field stars."""
+
+    def __init__(self, population, bands, obs, field_sizes):
+        self.population, self.bands, self.obs = population, tuple(bands), obs
+        self.field_sizes = tuple(field_sizes)
 
     def __call__(self, index, n, seed_sequence):
         import pyarrow as pa
         rng = np.random.default_rng(seed_sequence)
-        parts, have = [], 0
-        while have < n:  # completeness and windows remove stars: draw until the chunk is full
-            n_hb = max(int(np.ceil((n - have) * self.hb_fraction * 1.15)) + 5, 1)
-            t = make_mock(self.population, bands=self.bands, rng=rng, n_hb=n_hb, obs=self.obs)
-            parts.append(t)
-            have += len(t)
-        from astropy.table import vstack
-        t = vstack(parts) if len(parts) > 1 else parts[0]
-        t = t[rng.permutation(len(t))[:n]]  # a random subset keeps the lifetime proportions unbiased
+        obs = replace(self.obs, n_field=self.field_sizes[index])
+        t = make_mock(self.population, bands=self.bands, rng=rng, n_hb=int(n), obs=obs)
         t.meta.clear()
         return pa.table({c: np.asarray(t[c]) for c in t.colnames})
 
 
-def write_chunked_mock(population, *, bands, obs, seed, out_dir, chunk_size, n_hb=None, total_mass_msun=None,
-                       n_jobs=1, scheduler=None, force=False):
-    """Survey-size mock in constant memory: Parquet partitions under ``out_dir`` (see
-    :func:`hbmodel.batch.run_chunked`).  The size is set by ``n_hb`` or ``total_mass_msun``; the total number
-    of catalogue stars follows from the population's lifetime proportions."""
-    from .batch import run_chunked
+@dataclass(frozen=True)
+class ChunkPlan:
+    """Partitions of a chunked mock: ``hb_sizes[i]`` HB stars (drawn, before cuts) and ``field_sizes[i]``
+    field stars in partition ``i``; ``rows_per_hb`` expected catalogue rows per HB star."""
+
+    hb_sizes: tuple
+    field_sizes: tuple
+    rows_per_hb: float
+
+    @property
+    def n_hb(self) -> int:
+        return int(sum(self.hb_sizes))
+
+    @property
+    def n_rows(self) -> float:
+        return self.n_hb * self.rows_per_hb + sum(self.field_sizes)
+
+    def estimate(self, bands, *, out_dir=None, n_jobs=1, scheduler=None):
+        """:class:`hbmodel.resources.Estimate`: disk of all partitions; memory of the partitions made at
+        once by local workers (one each, plus a Python process each beyond the first; a Dask cluster's
+        workers manage their own memory)."""
+        import os
+
+        from .resources import BASE_MEMORY_BYTES, Estimate, table_disk_bytes, table_memory_bytes
+        n_parts = len(self.hb_sizes)
+        rows_part = max(self.hb_sizes) * self.rows_per_hb + max(self.field_sizes)
+        cols = mock_columns(bands)
+        if scheduler is not None:
+            workers = 0
+        else:
+            workers = min(n_parts, (os.cpu_count() or 1) if n_jobs == -1 else max(int(n_jobs), 1))
+        mem = workers * table_memory_bytes(rows_part, cols) + max(workers - 1, 0) * BASE_MEMORY_BYTES
+        return Estimate("this chunked mock", memory_bytes=mem,
+                        disk_bytes=table_disk_bytes(self.n_rows, cols, "x.parquet"), disk_path=out_dir,
+                        detail=f"{n_parts:,} partitions of about {rows_part:,.0f} stars, "
+                               f"{self.n_rows:.3g} stars in all")
+
+
+def plan_chunked_mock(population, *, bands, obs, seed, chunk_size, n_hb=None, total_mass_msun=None) -> ChunkPlan:
+    """The partition plan of :func:`write_chunked_mock`.
+
+    The HB stars (``n_hb``, or a Poisson draw of :func:`expected_hb_count` seeded by ``seed``) are split
+    into partitions of about ``chunk_size`` catalogue stars each, the HB counts differing by at most one
+    and summing to ``n_hb`` exactly, and so are the ``obs.n_field`` field stars; the rows per HB star
+    count the completeness and window cuts (from a pilot draw when either is set)."""
     if (n_hb is None) == (total_mass_msun is None):
         raise ValueError("give exactly one of n_hb and total_mass_msun")
+    if int(chunk_size) < 1:
+        raise ValueError(f"the chunk size must be a positive number of stars (got {chunk_size})")
     if n_hb is None:
-        n_hb = expected_hb_count(population, total_mass_msun)
-    times = population.phase_times()
-    tot = sum(v.sum() for v in times.values())
-    hb_fraction = float(times["hb"].sum() / tot)
+        mean = expected_hb_count(population, total_mass_msun)
+        n_hb = int(np.random.default_rng(seed).poisson(mean)) if mean < 1e15 else int(mean)
+        if n_hb <= 0:
+            raise ValueError(f"a population of {total_mass_msun:g} Msun holds no HB star")
+    n_hb = int(n_hb)
+    if n_hb <= 0:
+        raise ValueError("the number of HB stars must be positive")
+    rows_per_hb = stars_per_hb_star(population, obs)
     if obs.window is not None or obs.completeness_m50 is not None:
-        # estimate the kept fraction with a small pilot draw
-        pilot = make_mock(population, bands=bands, rng=np.random.default_rng(seed), n_hb=500, obs=obs)
-        hb_fraction = max(float(np.mean(np.asarray(pilot["phase"]) == "hb")), 1e-3) if len(pilot) else hb_fraction
-    n_total = int(round(n_hb / hb_fraction))
-    return run_chunked(n_total, int(chunk_size), _MockChunk(population, bands, obs, hb_fraction), out_dir,
-                       n_jobs=n_jobs, scheduler=scheduler, force=force, seed=int(seed))
+        # the kept fraction from a small pilot draw
+        pilot = make_mock(population, bands=bands, rng=np.random.default_rng(seed), n_hb=500,
+                          obs=replace(obs, n_field=0))
+        if len(pilot) == 0:  # the partitions could never be filled
+            raise ValueError("no star of a 500-HB-star pilot mock survives the window / completeness limit: "
+                             "the mock would be empty")
+        rows_per_hb = max(len(pilot) / 500.0, 1e-3)
+    hb_per_part = max(1, int(round(int(chunk_size) / rows_per_hb)))
+    n_parts = -(-n_hb // hb_per_part)
+    return ChunkPlan(tuple(_split(n_hb, n_parts)), tuple(_split(obs.n_field, n_parts)), float(rows_per_hb))
+
+
+def write_chunked_mock(population, *, bands, obs, seed, out_dir, chunk_size, n_hb=None, total_mass_msun=None,
+                       n_jobs=1, scheduler=None, force=False, max_memory=None, max_disk=None):
+    """Survey-size mock in bounded memory: Parquet partitions under ``out_dir`` (see
+    :func:`hbmodel.batch.run_chunked`).
+
+    The size is set by ``n_hb`` or ``total_mass_msun``.  The partitions hold about ``chunk_size`` stars
+    each; their HB counts sum to ``n_hb`` exactly (HB stars drawn, before completeness and window cuts,
+    as in :func:`make_mock`) and the ``obs.n_field`` field stars are split over them
+    (:func:`plan_chunked_mock`).  Before anything is written, the memory of the parallel partitions and
+    the disk of all of them are checked against the limits (:func:`hbmodel.resources.check_budget`;
+    ``max_memory``/``max_disk`` override the machine's); each partition checks the free disk again before
+    it is written.  The output depends only on the arguments and ``seed`` (not on ``n_jobs`` or the
+    scheduler)."""
+    from .batch import run_chunked
+    from .resources import check_budget
+    plan = plan_chunked_mock(population, bands=bands, obs=obs, seed=seed, chunk_size=chunk_size, n_hb=n_hb,
+                             total_mass_msun=total_mass_msun)
+    check_budget(plan.estimate(bands, out_dir=out_dir, n_jobs=n_jobs, scheduler=scheduler),
+                 max_memory=max_memory, max_disk=max_disk)
+    return run_chunked(plan.n_hb, plan.hb_sizes[0], _MockChunk(population, bands, obs, plan.field_sizes), out_dir,
+                       n_jobs=n_jobs, scheduler=scheduler, force=force, seed=int(seed), balanced=True,
+                       exact_rows=False)

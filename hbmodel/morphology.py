@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .photometry import get_band
 from .pulsation import MODE_NONE, fundamentalised_period_days, strip_edges
 from .zahb import envelope_for_logteff, zahb_logl, zahb_logteff
 
@@ -78,6 +79,8 @@ def _photometry_available():
 
 def predict_summary(pop, bands=None) -> dict:
     """All deterministic predictions of ``hbmodel predict`` for a population."""
+    if bands:
+        bands = tuple(get_band(b).name for b in bands)  # canonical names (aliases such as K -> Ks)
     st = pop.model_stars()
     hb = st.phase == "hb"
     rgb = st.phase == "rgb"

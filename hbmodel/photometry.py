@@ -51,7 +51,10 @@ gravity or metallicity term (except through U); Flower's BC_V has no [Fe/H] term
 from __future__ import annotations
 
 import csv
+import difflib
 import io
+import math
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -62,7 +65,7 @@ from ._validate import as_float_array, check_range
 from .composition import FEH_RANGE
 
 __all__ = [
-    "M_BOL_SUN", "BAND_NAMES", "Band", "get_band", "TEFF_RANGE_K", "LOGG_RANGE",
+    "M_BOL_SUN", "BAND_NAMES", "Band", "get_band", "resolve_band", "parse_bands", "parse_colour", "TEFF_RANGE_K", "LOGG_RANGE",
     "bolometric_correction", "absolute_magnitudes", "colour", "colours_v", "FixedMetallicityPhotometry",
 ]
 
@@ -90,6 +93,7 @@ class Band:
     lambda_hi_um: float
     shape: str
     colour_source: str
+    aliases: tuple[str, ...] = ()
 
 
 @table_cache
@@ -98,10 +102,83 @@ def _registry() -> dict[str, Band]:
     rows = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     out = {}
     for r in csv.DictReader(io.StringIO("\n".join(rows))):
+        aliases = tuple(a.strip() for a in (r.get("aliases") or "").split(";") if a.strip())
         out[r["name"]] = Band(r["name"], r["system"], r["zero_point"], float(r["lambda_eff_um"]),
                               float(r["lambda_lo_um"]), float(r["lambda_hi_um"]), r["shape"],
-                              r["colour_source"])
+                              r["colour_source"], aliases)
     return out
+
+
+@table_cache
+def _band_lookup() -> dict[str, str]:
+    """Case-folded band name or alias -> canonical band name (a clash in ``bands.csv`` is an error)."""
+    out: dict[str, str] = {}
+    for band in _registry().values():
+        for key in (band.name, *band.aliases):
+            folded = key.casefold()
+            if out.get(folded, band.name) != band.name:
+                raise ValueError(f"bands.csv: {key!r} names both {out[folded]} and {band.name}")
+            out[folded] = band.name
+    return out
+
+
+def _nearest_band(name: str) -> str:
+    """The known band nearest to an unknown ``name``: by spelling, else (HST-style F606W names) by wavelength."""
+    lookup = _band_lookup()
+    close = difflib.get_close_matches(name.casefold(), list(lookup), n=1, cutoff=0.6)
+    if close:
+        return lookup[close[0]]
+    m = re.search(r"F(\d{3,4})[WMNLPX]", name.upper())
+    if m:  # HST convention: F606W = 606 nm; three-digit numbers below 200 are IR, F160W = 1.60 micron
+        num = int(m.group(1))
+        lam_um = num / 100.0 if num < 200 else num / 1000.0
+        return min(_registry().values(), key=lambda b: abs(math.log(b.lambda_eff_um / lam_um))).name
+    return lookup[difflib.get_close_matches(name.casefold(), list(lookup), n=1, cutoff=0.0)[0]]
+
+
+def resolve_band(name, what: str | None = None) -> str:
+    """Canonical name of band ``name`` (its name or an alias of ``tables/bands.csv``, any letter case).
+
+    ``resolve_band("k") == "Ks"``.  An unknown name raises a one-line ``ValueError`` naming ``what``
+    (e.g. the option) and the nearest known band."""
+    prefix = f"{what}: " if what else ""
+    if not isinstance(name, str) or not name.strip():
+        raise ValueError(f"{prefix}a band name is empty or not a string ({name!r})")
+    key = name.strip()
+    hit = _band_lookup().get(key.casefold())
+    if hit is None:
+        raise ValueError(f"{prefix}unknown band {key!r} (nearest known band: {_nearest_band(key)}; "
+                         f"known: {', '.join(_registry())})")
+    return hit
+
+
+def parse_bands(text, what: str | None = "--bands", n: int | None = None) -> tuple[str, ...]:
+    """'V,i' (or a sequence) -> canonical band names ('V', 'I'); ``n`` = exact count wanted.
+
+    Empty items, unknown bands and repeated bands are one-line ``ValueError``s naming ``what``."""
+    label = what or "the bands"
+    items = [str(x) for x in text] if isinstance(text, (list, tuple)) else str(text).replace(";", ",").split(",")
+    names = [x.strip() for x in items]
+    if not names or any(not x for x in names):
+        raise ValueError(f"{label} must be comma-separated band names (got {text!r})")
+    bands = tuple(resolve_band(x, what) for x in names)
+    dup = sorted({b for b in bands if bands.count(b) > 1})
+    if dup:
+        raise ValueError(f"{label}: band {dup[0]} is given twice (got {text!r})")
+    if n is not None and len(bands) != n:
+        raise ValueError(f"{label} must be {n} band{'s' if n > 1 else ''} (got {text!r})")
+    return bands
+
+
+def parse_colour(text, what: str = "--color") -> tuple[str, str]:
+    """'J-Ks' (or 'j-k') -> ('J', 'Ks'): a colour index A-B of two different known bands."""
+    parts = str(text).split("-")
+    if len(parts) != 2 or not all(p.strip() for p in parts):
+        raise ValueError(f"{what} must be two bands joined by '-', e.g. J-Ks (got {text!r})")
+    a, b = (resolve_band(p, what) for p in parts)
+    if a == b:
+        raise ValueError(f"{what} must join two different bands (got {text!r})")
+    return a, b
 
 
 #: Standard band names, in registry order.
@@ -109,11 +186,9 @@ BAND_NAMES: tuple[str, ...] = tuple(_registry())
 
 
 def get_band(name: str) -> Band:
-    """Return the :class:`Band` called ``name``; unknown names raise ``ValueError``."""
-    reg = _registry()
-    if not isinstance(name, str) or name not in reg:
-        raise ValueError(f"unknown band {name!r}; valid bands: {', '.join(reg)}")
-    return reg[name]
+    """Return the :class:`Band` called ``name`` (or an alias, any case: see :func:`resolve_band`);
+    unknown names raise ``ValueError``."""
+    return _registry()[resolve_band(name)]
 
 
 # --------------------------------------------------------------------------- tables

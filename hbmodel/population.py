@@ -484,20 +484,34 @@ class Population:
 
         Expected counts follow the time spent in each phase (:meth:`phase_times`, or ``rates`` if already
         computed); each is rounded down and gets one more star with probability equal to its fractional
-        part, so counts are unbiased.  RGB counts cover only the stretch of ``rgb_logl_range``.  Returns a
-        list of ``(sub_index, phase, n, (v_lo, v_hi))`` with ``n > 0``; ``(v_lo, v_hi)`` is the interval of
-        fractional RGB age to draw from (``(0, 1)`` for the HB and AGB)."""
+        part, so counts are unbiased.  The HB counts of the sub-populations are rounded together
+        (systematic sampling of the fractional parts with one uniform number: each still has the right
+        probability) so that they add up to exactly ``n_hb``.  RGB counts cover only the stretch of
+        ``rgb_logl_range``.  Returns a list of ``(sub_index, phase, n, (v_lo, v_hi))`` with ``n > 0``;
+        ``(v_lo, v_hi)`` is the interval of fractional RGB age to draw from (``(0, 1)`` for the HB and AGB)."""
         rates = self.phase_times() if rates is None else rates
         tot_hb = rates["hb"].sum()
         if tot_hb <= 0:
             raise ValueError("no star of this population reaches the HB (all envelopes lost on the RGB)")
+        phases = tuple(phases)
+        u = rng.random((len(self.subpopulations), len(phases)))  # one number per count, in this order
+        hb_counts = None
+        if "hb" in phases:
+            mean_hb = rates["hb"] / tot_hb * n_hb
+            frac = mean_hb % 1
+            cum = np.cumsum(frac)
+            u0 = u[0, phases.index("hb")]
+            hb_counts = np.floor(mean_hb).astype(int) + np.diff(np.floor(np.concatenate([[0.0], cum]) + u0)).astype(int)
+            short = int(round(float(n_hb))) - int(hb_counts.sum()) if float(n_hb) % 1 == 0 else 0
+            if short:  # floating-point rounding of the fractional parts: put the star where most is missing
+                hb_counts[int(np.argmax(frac if short > 0 else -frac))] += short
         out = []
         for i, sub in enumerate(self.subpopulations):
-            for ph in phases:
+            for k, ph in enumerate(phases):
                 mean = rates[ph][i] / tot_hb * n_hb
                 win = self._rgb_time_window(sub, rgb_logl_range) if ph == "rgb" else (0.0, 1.0)
                 mean *= win[1] - win[0]
-                n = int(np.floor(mean)) + int(rng.random() < mean % 1)
+                n = int(hb_counts[i]) if ph == "hb" else int(np.floor(mean)) + int(u[i, k] < mean % 1)
                 if n > 0 and mean > 0:
                     out.append((i, ph, n, win))
         return out

@@ -8,6 +8,7 @@ deviation) and its Fisher-information errors sigma/sqrt(n), sigma/sqrt(2n)
 """
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import pathlib
@@ -233,6 +234,48 @@ def test_changed_options_and_force_rerun(jobs_file, tmp_path):
     assert list(s["status"]) == ["done"] * 5
 
 
+def test_replaced_catalogue_reruns_the_job(jobs_file, tmp_path):
+    # issue 16: replacing a job's catalogue by a different file was "skipped-done" with the stale answer;
+    # resume now also compares the SHA-256 of the catalogue bytes stored with the result
+    out = tmp_path / "out"
+    s = run_batch(jobs_file, gauss_mag_task, out)
+    stale = float(s["mag_mean"][2])
+    assert stale == pytest.approx(15.0, abs=0.05)  # field2 was drawn around 14 + 0.5 * 2
+    rec = json.loads((out / "Vela-2" / "result.json").read_text())
+    cat = tmp_path / "cats" / "field2.ecsv"
+    assert rec["inputs"]["catalog"] == "sha256:" + hashlib.sha256(cat.read_bytes()).hexdigest()
+    Table({"mag": np.random.default_rng(5).normal(17.0, 0.1, 300)}).write(cat, overwrite=True)
+    s = run_batch(jobs_file, gauss_mag_task, out)
+    assert list(s["status"]) == ["skipped-done"] * 2 + ["done"] + ["skipped-done"] * 2
+    assert float(s["mag_mean"][2]) == pytest.approx(17.0, abs=0.05)
+    # the same bytes rewritten (new mtime) are the same input: skipped
+    cat.write_bytes(cat.read_bytes())
+    s = run_batch(jobs_file, gauss_mag_task, out)
+    assert list(s["status"]) == ["skipped-done"] * 5
+
+
+def test_jobs_schema_checks_columns_rows_and_types(tmp_path):
+    from hbmodel.batch import JobColumn, JobSchema, as_float, as_int, as_text
+    schema = JobSchema({"catalog": JobColumn(as_text, True), "feh": JobColumn(as_float, True),
+                        "n": JobColumn(as_int), "age": JobColumn(as_float), "age_lo": JobColumn(as_float),
+                        "age_hi": JobColumn(as_float)}, alternatives=((("age",), ("age_lo", "age_hi")),))
+    cases = [("name,catalog,fe_h,age\nA,x,1,2\n", r"unknown column 'fe_h' \(did you mean 'feh'\?"),
+             ("name,catalog,age\nA,x,2\n", "required column 'feh' is missing"),
+             ("name,catalog,feh,age\nA,x,1,2\nB,x,,2\n", r"row 2 \(job 'B'\), column 'feh': empty"),
+             ("name,catalog,feh,age\nA,x,1,2\nB,x,minus one,2\n", r"row 2 \(job 'B'\), column 'feh': "
+                                                                  "expected a number, got 'minus one'"),
+             ("name,catalog,feh,age,n\nA,x,1,2,10.7\n", "column 'n': expected an integer, got 10.7"),
+             ("name,catalog,feh,age,age_lo,age_hi\nA,x,1,2,1,3\n", "exactly one of age or age_lo"),
+             ("name,catalog,feh,age_lo\nA,x,1,1\n", "exactly one of age or age_lo")]
+    for text, match in cases:
+        (tmp_path / "j.csv").write_text(text)
+        with pytest.raises(ValueError, match=match):
+            read_jobs(tmp_path / "j.csv", schema=schema)
+    (tmp_path / "j.csv").write_text("name,catalog,feh,age,age_lo,age_hi,n\nA,x,-1,5,,,3.0\nB,x,0,,1,3,\n")
+    t = read_jobs(tmp_path / "j.csv", schema=schema)
+    assert list(t["feh"]) == [-1.0, 0.0] and int(t["n"][0]) == 3 and np.ma.is_masked(t["age"][1])
+
+
 def test_refuses_foreign_nonempty_out_dir(jobs_file, tmp_path):
     out = tmp_path / "mine"
     out.mkdir()
@@ -416,3 +459,20 @@ def test_chunked_resume_and_guards(tmp_path):
         run_chunked(10, 5, lambda i, n, c: _normal_chunk(i, 3, c), tmp_path / "b")
     with pytest.raises(ValueError, match="positive integer"):
         run_chunked(0, 5, _normal_chunk, tmp_path / "c")
+
+
+@pytest.mark.parametrize("umask", [0o022, 0o027])
+def test_outputs_follow_umask(jobs_file, tmp_path, umask):
+    # case (issue 16): batch outputs and chunked Parquet partitions were written 0600 (mkstemp's mode),
+    # unreadable to the group on the shared file system of a Dask cluster
+    old = os.umask(umask)
+    try:
+        run_batch(jobs_file, gauss_mag_task, tmp_path / "out", n_jobs=1)
+        parts = run_chunked(100, 40, _normal_chunk, tmp_path / "c")
+    finally:
+        os.umask(old)
+    files = [tmp_path / "out" / n for n in ("summary.ecsv", "summary.csv", "summary.png", ".hbmodel-batch")]
+    files += [tmp_path / "out" / "Vela-0" / "result.json", tmp_path / "c" / ".hbmodel-chunks.json", *parts]
+    assert {f.name: oct(f.stat().st_mode & 0o777) for f in files} == {f.name: oct(0o666 & ~umask) for f in files}
+    for d in (tmp_path / "out", tmp_path / "out" / "Vela-0", tmp_path / "c"):
+        assert d.stat().st_mode & 0o777 == 0o777 & ~umask

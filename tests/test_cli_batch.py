@@ -3,6 +3,7 @@ import subprocess
 import sys
 
 import numpy as np
+import pytest
 from astropy.table import Table
 
 from hbmodel.mock import ObservationSpec, make_mock
@@ -27,6 +28,13 @@ def test_batch_distance_jobs(tmp_path):
     mtime = (tmp_path / "out" / "near" / "result.json").stat().st_mtime_ns
     subprocess.run(cmd, capture_output=True, text=True)  # resume: finished jobs are not redone
     assert (tmp_path / "out" / "near" / "result.json").stat().st_mtime_ns == mtime
+    # issue 16: a replaced catalogue (same name, other content) re-runs its job, no stale answer
+    (tmp_path / "f0.ecsv").write_bytes((tmp_path / "f1.ecsv").read_bytes())
+    subprocess.run(cmd, capture_output=True, text=True)
+    s = Table.read(tmp_path / "out" / "summary.ecsv")
+    got = {r["name"]: r for r in s}
+    assert str(got["near"]["status"]) == "done" and str(got["far"]["status"]) == "skipped-done"
+    assert abs(got["near"]["distance_modulus"] - 14.3) < 0.06
 
 
 def test_batch_bad_jobs_table(tmp_path):
@@ -34,3 +42,43 @@ def test_batch_bad_jobs_table(tmp_path):
     proc = subprocess.run([sys.executable, "-m", "hbmodel", "batch", str(tmp_path / "jobs.csv"), "--out",
                            str(tmp_path / "o")], capture_output=True, text=True)
     assert proc.returncode == 2 and "duplicate" in proc.stderr.lower() and "Traceback" not in proc.stderr
+
+
+def _batch(tmp_path, text, task="distance"):
+    from hbmodel.cli import main
+    (tmp_path / "j.csv").write_text(text)
+    return main(["batch", str(tmp_path / "j.csv"), "--task", task, "--out", str(tmp_path / "o")])
+
+
+@pytest.mark.parametrize("text,task,needles", [
+    # the issue's case: a 'fe_h' column ran with feh = 0.0, exit 0
+    ("name,catalog,band,fe_h,age,ebv\nF1,f1.ecsv,I,-0.5,5,0.3\n", "distance",
+     ["unknown column 'fe_h'", "did you mean 'feh'"]),
+    # no 'age' column ran at 4 Gyr
+    ("name,catalog,band,feh,ebv\nF1,f1.ecsv,I,-0.5,0.3\n", "distance", ["row 1 (job 'F1')", "age or age_min+age_max"]),
+    ("name,catalog,band,feh,age\nF1,f1.ecsv,I,-0.5,5\n", "distance", ["required column 'ebv' is missing"]),
+    ("name,catalog,band,feh,age,ebv\nF1,f1.ecsv,I,-0.5,5,0.3\nF2,f1.ecsv,I,minus one,5,0.3\n", "distance",
+     ["row 2 (job 'F2'), column 'feh'", "'minus one'"]),
+    ("name,catalog,band,feh,age,ebv,seed\nF1,f1.ecsv,I,-0.5,5,0.3,10.7\n", "distance",
+     ["column 'seed'", "expected an integer, got 10.7"]),
+    ("name,catalog,band,feh,age,ebv\nF1,f1.ecsv,ACS_F606W,-0.5,5,0.3\n", "distance",
+     ["column 'band'", "nearest known band: G"]),
+    ("name,catalog,bands,feh,age,distance_modulus,model\nC,c.ecsv,\"V,I\",-1,12,15,spred\n", "fit",
+     ["column 'model'", "'spred' is not one of spread"]),
+    ("name,catalog,bands,feh,age\nC,c.ecsv,\"V,I\",-1,12\n", "fit", ["required column 'distance_modulus'"]),
+])
+def test_batch_jobs_table_is_validated_like_a_config_file(tmp_path, capsys, text, task, needles):
+    assert _batch(tmp_path, text, task) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "Traceback" not in err
+    for n in needles:
+        assert n in err, (n, err)
+    assert not (tmp_path / "o").exists()  # refused before any job ran
+
+
+def test_batch_band_alias_is_stored_canonical(tmp_path):
+    from hbmodel.batch import read_jobs
+    from hbmodel.tasks import JOB_SCHEMAS
+    (tmp_path / "j.csv").write_text("name,catalog,band,feh,age_min,age_max,ebv\nF,f.ecsv,k,0,1,10,0.1\n")
+    t = read_jobs(tmp_path / "j.csv", schema=JOB_SCHEMAS["distance"])
+    assert list(t["band"]) == ["Ks"] and float(t["age_max"][0]) == 10.0

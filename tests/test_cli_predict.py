@@ -38,7 +38,7 @@ def test_mass_loss_and_eta_forms_agree(capsys):
     (["predict", "--feh", "5", "--age", "12", "--eta", "0.4"], "outside"),
     (["predict", "--feh", "-1", "--age", "-3", "--eta", "0.4"], "age"),
     (["predict", "--feh", "-1", "--age", "12", "--eta", "-0.4"], "eta"),
-    (["predict", "--feh", "-1", "--age", "12", "--eta", "0.4", "--mass-loss", "0.2"], "only one"),
+    (["predict", "--feh", "-1", "--age", "12", "--eta", "0.4", "--mass-loss", "0.2"], "not allowed with"),
     (["predict", "--feh", "-1", "--age", "0.1", "--eta", "0.4"], "age"),
     (["predict", "--feh", "-1", "--age", "12"], "mass loss"),
     (["predict", "--feh", "abc", "--age", "12", "--eta", "0.4"], "invalid float"),

@@ -29,15 +29,17 @@ def test_band_registry_names_and_fields():
     assert get_band("J").system == "2MASS" and get_band("G").system.startswith("Gaia")
 
 
-def test_unknown_band_lists_valid_names():
-    with pytest.raises(ValueError, match="valid bands: U, B, V"):
-        get_band("K")
+def test_unknown_band_lists_known_names_and_the_nearest():
+    # issue 16: an unknown band names the nearest known one; K / k are now aliases of Ks (tables/bands.csv)
+    with pytest.raises(ValueError, match=r"unknown band 'Kss' \(nearest known band: Ks; known: U, B, V"):
+        get_band("Kss")
+    with pytest.raises(ValueError, match="nearest known band: G"):  # HST F606W = 606 nm, nearest G (622 nm)
+        get_band("ACS_F606W")
     with pytest.raises(ValueError, match="unknown band"):
         bolometric_correction("z", *SUN)
     with pytest.raises(ValueError, match="unknown band"):
         absolute_magnitudes(*SUN, 0.0, bands=("V", "Y"))
-    with pytest.raises(ValueError, match="unknown band"):
-        colour("V", "k", *SUN)
+    assert colour("V", "k", *SUN) == colour("V", "Ks", *SUN)
 
 
 def test_solar_bolometric_reference():

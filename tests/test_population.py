@@ -106,7 +106,7 @@ def test_window_sampling_keeps_only_window():
 @pytest.mark.parametrize("extra,msg", [
     (["--bands", "V,Q"], "band"),
     (["--bands", "V,I", "--n-hb", "0"], "positive"),
-    (["--bands", "V,I", "--n-hb", "10", "--mass-loss", "0.2"], "only one"),
+    (["--bands", "V,I", "--n-hb", "10", "--mass-loss", "0.2"], "not allowed with"),
 ])
 def test_mock_bad_input(tmp_path, extra, msg):
     out = tmp_path / "m.ecsv"

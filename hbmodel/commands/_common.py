@@ -18,16 +18,27 @@ def add_population_arguments(p: argparse.ArgumentParser, *, mass_loss_required=T
     g.add_argument("--helium-enriched-fraction", type=float, default=0.0,
                    help="fraction of stars enriched in helium (multiple populations)")
     g.add_argument("--delta-y", type=float, default=0.0, help="helium enrichment of that fraction")
-    m = p.add_argument_group("RGB mass loss (give --eta or --mass-loss)")
-    m.add_argument("--eta", type=float, default=None, help="mass-loss efficiency of --law")
+    m = p.add_argument_group("RGB mass loss (give one of --eta, --mass-loss, --hb-masses)")
+    one = m.add_mutually_exclusive_group()
+    one.add_argument("--eta", type=float, default=None, help="mass-loss efficiency of --law")
     m.add_argument("--eta-sd", type=float, default=0.0, help="star-to-star Gaussian spread in eta")
-    m.add_argument("--mass-loss", type=float, default=None, help="mean integrated RGB mass loss (Msun)")
+    one.add_argument("--mass-loss", type=float, default=None, help="mean integrated RGB mass loss (Msun)")
     m.add_argument("--mass-loss-sd", type=float, default=0.0, help="star-to-star spread of the loss (Msun)")
     m.add_argument("--law", choices=("reimers", "schroeder_cuntz"), default="reimers",
                    help="mass-loss law (default reimers)")
-    m.add_argument("--hb-masses", default=None, metavar="FILE",
+    one.add_argument("--hb-masses", default=None, metavar="FILE",
                    help="user HB-mass distribution: a table with a 'mass' column (replaces --eta/--mass-loss)")
     p.set_defaults(_mass_loss_required=mass_loss_required)
+
+
+def add_resource_arguments(p: argparse.ArgumentParser):
+    """--max-memory / --max-disk, on every command (see :mod:`hbmodel.resources`)."""
+    from ..resources import size_argument
+    g = p.add_argument_group("resource limits (default: 80% of the available memory, 90% of the free disk)")
+    g.add_argument("--max-memory", type=size_argument, default=None, metavar="SIZE",
+                   help="largest memory the run may plan to use, e.g. 4G or 500M")
+    g.add_argument("--max-disk", type=size_argument, default=None, metavar="SIZE",
+                   help="largest disk space the run's output may plan to use, e.g. 20G")
 
 
 def mass_loss_from_args(args):
@@ -106,3 +117,31 @@ def parse_floats(text, n, what):
     if len(vals) != n or not all(math.isfinite(v) for v in vals):
         raise ValueError(f"{what} must be {n} comma-separated finite numbers (got {text!r})")
     return vals
+
+
+def canonical_columns(mapping: dict | None) -> dict | None:
+    """A ``--columns`` mapping with band keys (and ``<band>_err``) under their canonical band names."""
+    from ..photometry import resolve_band
+    if not mapping:
+        return mapping
+
+    def canon(key):
+        base, err = (key[:-4], "_err") if key.endswith("_err") else (key, "")
+        try:
+            return resolve_band(base) + err
+        except ValueError:
+            return key  # not a band (e.g. teff, mass)
+    return {canon(k): v for k, v in mapping.items()}
+
+
+def colour_of(text, bands, what="--color"):
+    """``--color A-B`` as canonical bands, which must be among ``bands``; None when not given."""
+    from ..photometry import parse_colour
+    if not text:
+        return None
+    colour = parse_colour(text, what)
+    missing = [b for b in colour if b not in bands]
+    if missing:
+        raise ValueError(f"{what} {colour[0]}-{colour[1]}: band {missing[0]} is not among the bands "
+                         f"{','.join(bands)}")
+    return colour

@@ -5,10 +5,14 @@ NAME = "batch"
 HELP = "run fit or distance jobs from a table in parallel (joblib or a Dask cluster), resumably"
 DESCRIPTION = """Run one job per row of a JOBS table (CSV/ECSV).
 
-Columns: name, catalog, and the options of the task: for --task fit: bands, feh, alpha_fe, age,
-distance_modulus, dm_sd, ebv, ebv_sd[, model]; for --task distance: band, feh, age (or age_min, age_max),
-ebv[, ebv_sd, eta].  Each job's result is written atomically to DIR/<name>/result.json when it finishes;
-a re-run skips finished jobs; a failing job is reported and does not stop the others.  DIR/summary.ecsv,
+Columns (checked like a config file: an unknown column, a missing required column or an unreadable
+cell is an error naming the row and column; [optional]):
+  --task fit:      name, catalog, bands, feh, age, distance_modulus[, alpha_fe, dm_sd, ebv, ebv_sd, model, seed]
+  --task distance: name, catalog, band (or bands), feh, age (or age_min and age_max), ebv
+                   [, alpha_fe, ebv_sd, eta, seed]
+Band names are case-insensitive and accept aliases (K = Ks).  Each job's result is written atomically to
+DIR/<name>/result.json when it finishes; a re-run skips a finished job only if its options and the SHA-256
+of its catalogue are unchanged; a failing job is reported and does not stop the others.  DIR/summary.ecsv,
 summary.csv and summary.png are written at the end.
 
 examples:
@@ -30,10 +34,14 @@ def run(args):
     import numpy as np
 
     from ..batch import read_jobs, run_batch
-    from ..tasks import TASKS
+    from ..tasks import JOB_SCHEMAS, TASKS
     if args.jobs < 1:
         raise ValueError("--jobs must be at least 1")
-    jobs = read_jobs(args.jobs_table)
+    jobs = read_jobs(args.jobs_table, schema=JOB_SCHEMAS[args.task])
+    from ..batch import _jobs_as_dicts
+    from ..resources import batch_estimate, check_budget
+    check_budget(batch_estimate(_jobs_as_dicts(jobs), args.task, n_jobs=args.jobs, scheduler=args.scheduler,
+                                out_dir=args.out), max_memory=args.max_memory, max_disk=args.max_disk)
     summary = run_batch(jobs, TASKS[args.task], args.out, n_jobs=args.jobs, scheduler=args.scheduler,
                         force=args.force)
     status = np.asarray(summary["status"]).astype(str)

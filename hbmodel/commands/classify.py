@@ -21,8 +21,9 @@ def add_arguments(p):
     p.add_argument("catalog")
     p.add_argument("--feh", type=float, required=True)
     p.add_argument("--alpha-fe", type=float, default=0.0)
-    p.add_argument("--age", type=float, default=None)
-    p.add_argument("--age-range", default=None, help="constant star formation between A1:A2 Gyr")
+    ages = p.add_mutually_exclusive_group()
+    ages.add_argument("--age", type=float, default=None, help="age in Gyr (single population)")
+    ages.add_argument("--age-range", default=None, help="constant star formation between A1:A2 Gyr")
     p.add_argument("--eta", type=float, default=0.3)
     p.add_argument("--teff-err", type=float, default=None, help="typical Teff error (K); default: median teff_err or 80")
     p.add_argument("--logg-err", type=float, default=None, help="typical log g error; default: median logg_err or 0.1")
@@ -48,6 +49,9 @@ def run(args):
     from ..classify import CHeBClassifier
     from ..io import read_catalog, write_table
     from .distance import _population
+    from ..resources import catalog_task_estimate, check_budget
+    check_budget(catalog_task_estimate("classify", args.catalog, out=args.out), max_memory=args.max_memory,
+                 max_disk=args.max_disk)
     mapping = parse_mapping(args.columns, "--columns")
     req = ["teff", "logg"] + (["mass"] if args.use_mass else [])
     t = read_catalog(args.catalog, columns=mapping or None, required=req)

@@ -88,6 +88,10 @@ def run(args):
     from ..io import atomic_savefig, atomic_write_json, prepare_out_dir
     from ..plots import plot_cmd
     from ..reports import write_report
+    from ..resources import Estimate, check_budget
+    # measured (--quick): 0.55 GB peak resident, a 1.1 MB report folder; rounded up for the full chains
+    check_budget(Estimate("the demo", memory_bytes=2**30, disk_bytes=20 * 2**20, disk_path=args.out),
+                 max_memory=args.max_memory, max_disk=args.max_disk)
     t0 = time.perf_counter()
     out = prepare_out_dir(args.out, force=args.force)
     scen = scenario()

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._common import dumps, parse_floats, parse_mapping
+from ._common import canonical_columns, dumps, parse_floats, parse_mapping
 
 NAME = "distance"
 HELP = "red-clump distance of a field or cluster, with the population correction"
@@ -18,15 +18,17 @@ examples:
 def add_arguments(p):
     p.add_argument("catalog", help="catalogue file (.csv .ecsv .fits .vot .parquet)")
     p.add_argument("--band", required=True, help="band of the clump luminosity function (I or Ks best)")
-    p.add_argument("--color", default=None, help="colour for reddening, e.g. J-Ks")
+    p.add_argument("--color", default=None, metavar="A-B",
+                   help="colour for reddening, e.g. J-Ks (any band order; names case-insensitive)")
     p.add_argument("--columns", default=None, help="column mapping, e.g. Ks=kmag,J=jmag")
     g = p.add_argument_group("population")
     g.add_argument("--feh", type=float, required=True, help="[Fe/H] of the clump stars")
     g.add_argument("--feh-sd", type=float, default=0.0, help="spread / uncertainty of [Fe/H]")
     g.add_argument("--alpha-fe", type=float, default=0.0)
-    g.add_argument("--age", type=float, default=None, help="age in Gyr (single population)")
+    ages = g.add_mutually_exclusive_group()
+    ages.add_argument("--age", type=float, default=None, help="age in Gyr (single population)")
+    ages.add_argument("--age-range", default=None, help="constant star formation between A1:A2 Gyr")
     g.add_argument("--age-sd", type=float, default=0.0, help="uncertainty of the age (Gyr)")
-    g.add_argument("--age-range", default=None, help="constant star formation between A1:A2 Gyr")
     g.add_argument("--eta", type=float, default=0.3, help="Reimers eta (default 0.3)")
     r = p.add_argument_group("reddening")
     r.add_argument("--ebv", type=float, default=None, help="E(B-V) (default 0 unless --reddening-from-color)")
@@ -77,27 +79,24 @@ def population_sd(args, band, smear=0.05):
 def run(args):
     from ..clump_distance import measure_distance
     from ..io import atomic_savefig, atomic_write_json, prepare_out_dir, read_catalog
-    from ..photometry import get_band
-    get_band(args.band)
-    colour = None
-    if args.color:
-        parts = args.color.split("-")
-        if len(parts) != 2:
-            raise ValueError("--color must look like J-Ks")
-        colour = (parts[0].strip(), parts[1].strip())
-        for b in colour:
-            get_band(b)
+    from ..photometry import parse_colour, resolve_band
+    band = resolve_band(args.band, "--band")
+    colour = parse_colour(args.color, "--color") if args.color else None
+    args.band, args.color = band, ("-".join(colour) if colour else None)  # canonical names in the run record
     if args.reddening_from_color and colour is None:
         raise ValueError("--reddening-from-color needs --color")
     if args.ebv is not None and args.ebv < 0:
         raise ValueError("E(B-V) must be non-negative")
-    mapping = parse_mapping(args.columns, "--columns")
-    needed = [args.band] + (list(colour) if colour and args.reddening_from_color else [])
+    from ..resources import catalog_task_estimate, check_budget
+    check_budget(catalog_task_estimate("distance", args.catalog, out=args.out), max_memory=args.max_memory,
+                 max_disk=args.max_disk)
+    mapping = canonical_columns(parse_mapping(args.columns, "--columns"))
+    needed = [band] + (list(colour) if colour and args.reddening_from_color else [])
     t = read_catalog(args.catalog, columns=mapping or None, required=sorted(set(needed)))
     if len(t) == 0:
         raise ValueError("the catalogue is empty")
-    mag = np.asarray(t[args.band], float)
-    err = np.asarray(t[f"{args.band}_err"], float) if f"{args.band}_err" in t.colnames else None
+    mag = np.asarray(t[band], float)
+    err = np.asarray(t[f"{band}_err"], float) if f"{band}_err" in t.colnames else None
     region = None
     if args.region:
         region = tuple(parse_floats(args.region, 2, "--region"))
@@ -107,8 +106,8 @@ def run(args):
     out = prepare_out_dir(args.out, force=args.force) if args.out else None
     ebv = None if args.reddening_from_color else (args.ebv or 0.0)
     cm = {b: np.asarray(t[b], float) for b in set(needed)} if ebv is None else None
-    res = measure_distance(mag, pop, args.band, colour_mags=cm, colour=colour, ebv=ebv, ebv_sd=args.ebv_sd,
-                           rv=args.rv, law=args.extinction_law, population_sd_mag=population_sd(args, args.band),
+    res = measure_distance(mag, pop, band, colour_mags=cm, colour=colour, ebv=ebv, ebv_sd=args.ebv_sd,
+                           rv=args.rv, law=args.extinction_law, population_sd_mag=population_sd(args, band),
                            mag_range=region, mag_err=err)
     d = res.to_dict()
     if out is not None:
@@ -117,13 +116,13 @@ def run(args):
         atomic_write_json(out / "result.json", d, force=args.force)
         atomic_write_json(out / "config.json", run_record("distance", args), force=args.force)
         fig, ax = plot_clump_lf(mag[np.isfinite(mag)], res.lf)
-        ax.set_title(f"clump LF in {args.band}: DM = {res.distance_modulus['median']:.3f}")
+        ax.set_title(f"clump LF in {band}: DM = {res.distance_modulus['median']:.3f}")
         atomic_savefig(fig, out / "lf.png", force=args.force)
         warn = [] if res.lf.converged else ["the LF fit did not converge cleanly"]
         write_report(out / "report.md", f"Red-clump distance: {args.catalog}", force=args.force,
-                     inputs={"catalog": args.catalog, "band": args.band, "[Fe/H]": args.feh,
+                     inputs={"catalog": args.catalog, "band": band, "[Fe/H]": args.feh,
                              "age [Gyr]": args.age, "age range": args.age_range, "E(B-V) given": args.ebv,
-                             "reddening from colour": args.color if args.reddening_from_color else None},
+                             "reddening from colour": "-".join(colour) if args.reddening_from_color else None},
                      results={k: v for k, v in d.items() if k != "lf_fit"},
                      plots=["lf.png"], warnings=warn)
     if args.json:
@@ -132,11 +131,11 @@ def run(args):
     else:
         dm = res.distance_modulus
         dk = res.distance_kpc
-        print(f"clump peak {args.band} = {res.clump_peak_mag:.3f} ± {res.clump_peak_mag_err:.3f} "
+        print(f"clump peak {band} = {res.clump_peak_mag:.3f} ± {res.clump_peak_mag_err:.3f} "
               f"({res.n_stars} stars in the fit window)")
-        print(f"model clump M_{args.band} = {res.clump_absmag:+.3f} ± {res.clump_absmag_err:.3f} "
+        print(f"model clump M_{band} = {res.clump_absmag:+.3f} ± {res.clump_absmag_err:.3f} "
               f"(population correction {res.population_correction:+.3f} vs the solar-neighbourhood clump)")
-        print(f"E(B-V) = {res.ebv:.3f} ± {res.ebv_err:.3f}, A_{args.band} = {res.extinction_mag:.3f}")
+        print(f"E(B-V) = {res.ebv:.3f} ± {res.ebv_err:.3f}, A_{band} = {res.extinction_mag:.3f}")
         print(f"distance modulus {dm['median']:.3f} (+{dm['hi'] - dm['median']:.3f} / -{dm['median'] - dm['lo']:.3f}); "
               f"distance {dk['median']:.3f} kpc")
     return 0

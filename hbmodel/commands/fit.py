@@ -18,7 +18,10 @@ examples:
 def add_arguments(p):
     p.add_argument("catalog", nargs="?", default=None, metavar="CATALOG",
                    help="photometric catalogue (CSV, ECSV, FITS, VOTable, Parquet)")
-    p.add_argument("--bands", default="V,I", help="FIRST,SECOND: magnitude axis FIRST, colour FIRST-SECOND")
+    p.add_argument("--bands", default="V,I",
+                   help="FIRST,SECOND: magnitude axis FIRST, colour FIRST-SECOND unless --color")
+    p.add_argument("--color", default=None, metavar="A-B",
+                   help="colour axis A-B of the two --bands in either order, e.g. --bands Ks,J --color J-Ks")
     g = p.add_argument_group("population")
     g.add_argument("--feh", type=float, required=True, help="[Fe/H] (dex)")
     g.add_argument("--alpha-fe", type=float, default=0.0, help="[alpha/Fe] (dex), default 0")
@@ -35,7 +38,7 @@ def add_arguments(p):
                    help="mass-loss spread, helium spread, or both (default spread)")
     p.add_argument("--no-compare", action="store_true", help="skip the model comparison")
     p.add_argument("--region", default=None, metavar="CMIN,CMAX,MBRIGHT,MFAINT",
-                   help="fitted CMD box (default: model HB/clump extent plus margins)")
+                   help="fitted CMD box, colour as --color (default: model HB/clump extent plus margins)")
     p.add_argument("--columns", default=None, metavar="V=vmag,I=imag,...",
                    help="map canonical names to catalogue columns")
     p.add_argument("--masses", default=None, metavar="FILE", help="measured masses: mass, mass_err, phase")
@@ -62,15 +65,13 @@ def _columns(text):
 def run(args):
     from ..fit import MassLossFit, Priors
     from ..io import prepare_out_dir, read_catalog
-    from ..photometry import get_band
+    from ..photometry import parse_bands
     from ..population import Population
-    from ._common import dumps, parse_floats
+    from ._common import canonical_columns, colour_of, dumps, parse_floats
 
-    bands = tuple(b.strip() for b in str(args.bands).split(","))
-    if len(bands) != 2 or not all(bands):
-        raise ValueError(f"--bands must be two bands FIRST,SECOND (got {args.bands!r})")
-    for b in bands:
-        get_band(b)
+    bands = parse_bands(args.bands, "--bands", n=2)
+    colour = colour_of(args.color, bands)
+    args.bands, args.color = ",".join(bands), ("-".join(colour) if colour else None)  # canonical in the record
     if args.catalog is None and args.masses is None:
         raise ValueError("give a CATALOG and/or --masses FILE")
     if not (math.isfinite(args.age) and args.age > 0):
@@ -82,10 +83,13 @@ def run(args):
     if args.max_steps < 100:
         raise ValueError("--max-steps must be at least 100")
     region = parse_floats(args.region, 4, "--region") if args.region else None
+    from ..resources import check_budget, fit_estimate
+    check_budget(fit_estimate(args.catalog, args.masses, max_steps=args.max_steps, out_dir=args.out),
+                 max_memory=args.max_memory, max_disk=args.max_disk)
     # read everything before touching the output directory
     cat = None
     if args.catalog is not None:
-        cols = _columns(args.columns)
+        cols = canonical_columns(_columns(args.columns))
         cat = read_catalog(args.catalog, columns=cols, required=list(bands) + [f"{b}_err" for b in bands])
     masses = read_catalog(args.masses, required=("mass", "mass_err")) if args.masses else None
     if cat is not None and args.distance_modulus is None:
@@ -99,7 +103,8 @@ def run(args):
         p = Path(args.out)
         if p.is_dir() and any(p.iterdir()) and not args.force:
             raise ValueError(f"output directory {p} exists and is not empty; use --force to overwrite")
-    est = MassLossFit(pop, pri, args.model, bands=bands, region=region, zero_points=not args.no_zero_points,
+    est = MassLossFit(pop, pri, args.model, bands=bands, colour=colour, region=region,
+                      zero_points=not args.no_zero_points,
                       sampler=args.sampler, compare_models=not args.no_compare and cat is not None,
                       max_steps=args.max_steps, seed=args.seed)
     est.fit(cat, masses)
@@ -109,7 +114,8 @@ def run(args):
         out_dir = prepare_out_dir(args.out, force=args.force)
         save_fit_products(est, out_dir, title=f"Mass-loss fit: {args.catalog or args.masses}", force=args.force,
                           config=run_record("fit", args),
-                          inputs={"catalog": args.catalog, "masses": args.masses, "bands": args.bands,
+                          inputs={"catalog": args.catalog, "masses": args.masses, "bands": ",".join(bands),
+                                  "colour": "-".join(est.colour_),
                                   "[Fe/H]": args.feh, "[alpha/Fe]": args.alpha_fe, "age [Gyr]": args.age,
                                   "helium": args.helium, "model": est.model, "stars in region": est.n_stars_})
     if args.json:

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._common import add_population_arguments, parse_floats, parse_mapping, population_from_args
+from ._common import add_population_arguments, colour_of, parse_floats, parse_mapping, population_from_args
 
 NAME = "mock"
 HELP = "generate a realistic mock catalogue (RGB, HB, early AGB, field) of a population"
@@ -18,17 +18,28 @@ with --chunk-size writes Parquet partitions (survey-size mocks).
 """
 
 
-def _band_map(text, what):
-    return parse_mapping(text, what, numeric=True)
+def _depths(text, bands):
+    """--depth V=23,I=22.5 -> {band: limit} with canonical band names, each one of ``bands``."""
+    from ..photometry import resolve_band
+    out = {}
+    for key, value in parse_mapping(text, "--depth", numeric=True).items():
+        band = resolve_band(key, "--depth")
+        if band not in bands:
+            raise ValueError(f"--depth band {band} is not among --bands {','.join(bands)}")
+        out[band] = value
+    return out
 
 
 def add_arguments(p):
     add_population_arguments(p)
-    n = p.add_argument_group("size (give one)")
+    n = p.add_argument_group("size (give one)").add_mutually_exclusive_group()
     n.add_argument("--n-hb", type=int, default=None, help="number of HB stars")
     n.add_argument("--total-mass", type=float, default=None, help="initial mass of the population (Msun)")
     o = p.add_argument_group("observation")
-    o.add_argument("--bands", required=True, help="comma-separated bands, e.g. V,I (first = magnitude axis)")
+    o.add_argument("--bands", required=True, help="comma-separated bands, e.g. V,I (first = magnitude axis; "
+                   "names are case-insensitive, aliases such as K = Ks accepted)")
+    o.add_argument("--color", default=None, metavar="A-B",
+                   help="colour of --plot and --field-box, two of --bands in any order (default FIRST-SECOND)")
     o.add_argument("--distance-modulus", type=float, default=0.0)
     o.add_argument("--ebv", type=float, default=0.0, help="mean E(B-V)")
     o.add_argument("--rv", type=float, default=3.1)
@@ -39,7 +50,8 @@ def add_arguments(p):
     o.add_argument("--completeness-width", type=float, default=0.15)
     o.add_argument("--binary-fraction", type=float, default=0.0, help="fraction of unresolved binaries")
     o.add_argument("--field-n", type=int, default=0, help="number of field contaminants")
-    o.add_argument("--field-box", default=None, help="CMIN,CMAX,MBRIGHT,MFAINT box for uniform contaminants")
+    o.add_argument("--field-box", default=None, help="CMIN,CMAX,MBRIGHT,MFAINT box for uniform contaminants "
+                   "(colour --color, magnitude FIRST band)")
     o.add_argument("--field-catalog", default=None, help="field catalogue to resample contaminants from")
     o.add_argument("--window", default=None, help="keep only BAND:BRIGHT:FAINT, e.g. I:13:16")
     p.add_argument("--seed", type=int, default=0, help="random seed (same seed -> identical file)")
@@ -55,12 +67,11 @@ def run(args):
     from ..io import atomic_savefig, read_catalog, write_table
     from ..mock import ObservationSpec, make_mock
 
-    bands = [b.strip() for b in args.bands.split(",") if b.strip()]
-    if not bands:
-        raise ValueError("--bands must list at least one band")
-    from ..photometry import get_band
-    for b in bands:
-        get_band(b)
+    from ..photometry import parse_bands, resolve_band
+    bands = list(parse_bands(args.bands, "--bands"))
+    colour = colour_of(args.color, bands)
+    if colour is None and len(bands) > 1:
+        colour = (bands[0], bands[1])
     if (args.n_hb is None) == (args.total_mass is None):
         raise ValueError("give exactly one of --n-hb and --total-mass")
     if args.n_hb is not None and args.n_hb <= 0:
@@ -70,22 +81,35 @@ def run(args):
     box = None
     if args.field_box:
         box = tuple(parse_floats(args.field_box, 4, "--field-box (CMIN,CMAX,MBRIGHT,MFAINT)"))
+        if colour is None or bands[0] not in colour:
+            raise ValueError(f"--field-box needs a colour that contains the magnitude band {bands[0]} "
+                             f"(got {'-'.join(colour) if colour else 'one band'}); set --color")
+        if not (box[0] < box[1] and box[2] < box[3]):
+            raise ValueError(f"--field-box {args.field_box}: need CMIN < CMAX and MBRIGHT < MFAINT")
     window = None
     if args.window:
         parts = args.window.split(":")
         if len(parts) != 3:
             raise ValueError("--window must be BAND:BRIGHT:FAINT")
         try:
-            window = (parts[0], float(parts[1]), float(parts[2]))
-        except ValueError:
+            window = (resolve_band(parts[0], "--window"), float(parts[1]), float(parts[2]))
+        except ValueError as exc:
+            if "band" in str(exc):
+                raise
             raise ValueError("--window must be BAND:BRIGHT:FAINT") from None
+        if not (np.isfinite(window[1]) and np.isfinite(window[2]) and window[1] < window[2]):
+            raise ValueError(f"--window {args.window}: BRIGHT must be a smaller magnitude than FAINT "
+                             "(e.g. I:13:16); this window holds no stars")
+        if window[0] not in bands:
+            raise ValueError(f"--window band {window[0]} is not among --bands {','.join(bands)}")
     field_table = read_catalog(args.field_catalog, required=bands) if args.field_catalog else None
     obs = ObservationSpec(distance_modulus=args.distance_modulus, ebv=args.ebv, rv=args.rv,
                           law=args.extinction_law, ebv_sd=args.ebv_sd,
-                          depth=_band_map(args.depth, "--depth") or None,
+                          depth=_depths(args.depth, bands) or None,
                           completeness_m50=args.completeness_m50, completeness_width=args.completeness_width,
                           completeness_band=bands[0], binary_fraction=args.binary_fraction,
-                          n_field=args.field_n, field_box=box, field_table=field_table, window=window)
+                          n_field=args.field_n, field_box=box, field_table=field_table, window=window,
+                          field_colour=colour if box else None)
     pop = population_from_args(args)
     if args.scheduler and not args.chunk_size:
         raise ValueError("--scheduler is used for chunked mocks: give --chunk-size too")
@@ -93,15 +117,23 @@ def run(args):
         from ..mock import write_chunked_mock
         parts = write_chunked_mock(pop, bands=bands, n_hb=args.n_hb, total_mass_msun=args.total_mass, obs=obs,
                                    seed=args.seed, out_dir=args.out, chunk_size=args.chunk_size,
-                                   n_jobs=args.jobs, scheduler=args.scheduler, force=args.force)
+                                   n_jobs=args.jobs, scheduler=args.scheduler, force=args.force,
+                                   max_memory=args.max_memory, max_disk=args.max_disk)
         print(f"wrote {len(parts)} Parquet partitions to {args.out}")
         return 0
+    from ..mock import mock_estimate
+    from ..resources import check_budget
+    check_budget(mock_estimate(pop, bands=bands, obs=obs, out=args.out, n_hb=args.n_hb, total_mass_msun=args.total_mass,
+                               plot=bool(args.plot)), max_memory=args.max_memory, max_disk=args.max_disk)
     rng = np.random.default_rng(args.seed)
     table = make_mock(pop, bands=bands, rng=rng, n_hb=args.n_hb, total_mass_msun=args.total_mass, obs=obs)
+    if len(table) == 0:
+        what = f"--window {window[0]}:{window[1]:g}:{window[2]:g}" if window else "the completeness limit"
+        raise ValueError(f"no star survives {what}: the mock would be empty (nothing written)")
     write_table(table, args.out, force=args.force)
     if args.plot:
         from ..plots import plot_cmd
-        colour = (bands[0], bands[1]) if len(bands) > 1 else (bands[0], bands[0])
+        colour = colour or (bands[0], bands[0])
         fig, _ = plot_cmd(table, bands[0], colour, title=f"mock: [Fe/H]={args.feh:+.2f}, {args.age:g} Gyr")
         atomic_savefig(fig, args.plot, force=args.force)
     counts = {ph: int(np.sum(table["phase"] == ph)) for ph in ("rgb", "hb", "agb", "field")}

@@ -24,9 +24,34 @@ def add_arguments(p):
     g.add_argument("--grid", default=None, help="HB-type diagram over [Fe/H]: feh=START:STOP:STEP")
     g.add_argument("--series", default=None, help="lines of the HB-type diagram: age=V1,V2,... or eta=V1,...")
     g.add_argument("--clump-grid", default=None, help="clump magnitudes over age=A:B:S,feh=F:G:S")
-    g.add_argument("--bands", default="I,Ks", help="bands of the clump grid (default I,Ks)")
+    g.add_argument("--bands", default=None,
+                   help="bands of the clump magnitudes (default: all bands; I,Ks for --clump-grid)")
     g.add_argument("--out", default=None, help="output directory of a grid (table + PNG)")
     g.add_argument("--force", action="store_true", help="write into an existing output directory")
+    g.add_argument("--max-models", type=int, default=None, metavar="N",
+                   help="largest number of models in a grid (default 10000, about 10 minutes)")
+
+
+def envelope_note(pop, res) -> str | None:
+    """Why HB quantities are missing (—) or describe only part of the stars: envelopes lost on the RGB."""
+    lost = float(res.get("fraction_envelope_lost") or 0.0)
+    if lost <= 0.0:
+        return None
+    ml = pop.mass_loss
+    why = ""
+    if ml.kind == "eta":
+        from ..mass_loss import ETA_RANGE
+        eta_lost = pop._eta_map(pop.subpopulations[0], ETA_RANGE[1])[2]
+        if np.isfinite(eta_lost):
+            why = (f"; with the {ml.law} law at [Fe/H] {pop.subpopulations[0].composition.feh:+.2f} and this age "
+                   f"the envelope is gone for eta >= {eta_lost:.2f} (the law's calibrated range is "
+                   f"[{ETA_RANGE[0]:g}, {ETA_RANGE[1]:g}]; given {ml.describe()})")
+    if res.get("hb_mass_mean") is None:
+        return (f"no star reaches the HB: the RGB mass loss removes the whole envelope "
+                f"({res['tip_mass'] - res['core_mass']:.3f} Msun above the {res['core_mass']:.3f} Msun helium "
+                f"core), so the stars leave the RGB as helium white dwarfs and every HB quantity is undefined{why}")
+    return (f"{100 * lost:.0f}% of the stars lose their whole envelope on the RGB and never reach the HB; "
+            f"the HB quantities describe the others{why}")
 
 
 def _fmt(v, spec=".3f"):
@@ -34,9 +59,15 @@ def _fmt(v, spec=".3f"):
 
 
 def _grid(args):
-    from ..grids import clump_grid, hb_type_grid, parse_range
+    from ..grids import clump_grid, grid_estimate, hb_type_grid, parse_range, range_count
+    from ..photometry import parse_bands
     from ..io import atomic_savefig, prepare_out_dir, write_table
     from ..plots import plot_clump_grid, plot_hb_type_grid
+    from ..resources import check_budget
+
+    def budget(n_models, what):  # before any model is made
+        check_budget(grid_estimate(n_models, args.out, what), max_memory=args.max_memory, max_disk=args.max_disk,
+                     max_models=args.max_models)
     if not args.out:
         raise ValueError("a grid needs --out DIR")
     if args.age is None:
@@ -46,12 +77,14 @@ def _grid(args):
         key, _, rng = args.grid.partition("=")
         if key.strip() != "feh":
             raise ValueError("--grid must be feh=START:STOP:STEP")
-        fehs = parse_range(rng, "--grid")
-        series, values = "age", np.array([args.age])
+        series, vals = "age", None
         if args.series:
             series, _, vals = args.series.partition("=")
             series = series.strip()
-            values = parse_range(vals, "--series")
+        budget(range_count(rng, "--grid") * (range_count(vals, "--series") if vals is not None else 1),
+               "this HB-type grid")
+        fehs = parse_range(rng, "--grid")
+        values = np.array([args.age]) if vals is None else parse_range(vals, "--series")
         out = prepare_out_dir(args.out, force=args.force)
         t = hb_type_grid(fehs, series, values, age_gyr=args.age, alpha_fe=args.alpha_fe, eta=eta,
                          eta_sd=args.eta_sd, helium=args.helium, law=args.law)
@@ -67,8 +100,9 @@ def _grid(args):
     except IndexError:
         raise ValueError("--clump-grid must be age=A:B:S,feh=F:G:S") from None
     del spec
+    budget(range_count(age_txt, "--clump-grid age") * range_count(feh_txt, "--clump-grid feh"), "this clump grid")
     ages, fehs = parse_range(age_txt, "--clump-grid age"), parse_range(feh_txt, "--clump-grid feh")
-    bands = [b.strip() for b in args.bands.split(",") if b.strip()]
+    bands = list(parse_bands(args.bands or "I,Ks", "--bands"))
     out = prepare_out_dir(args.out, force=args.force)
     t = clump_grid(ages, fehs, bands, alpha_fe=args.alpha_fe, eta=eta, eta_sd=args.eta_sd, helium=args.helium,
                    law=args.law)
@@ -81,12 +115,19 @@ def _grid(args):
 
 
 def run(args):
+    from ..photometry import parse_bands
+    if args.bands is not None:  # checked in every mode: an unknown band is an error, never ignored
+        args.bands = ",".join(parse_bands(args.bands, "--bands"))
     if args.grid or args.clump_grid:
         return _grid(args)
+    from ..grids import grid_estimate
+    from ..resources import check_budget
+    check_budget(grid_estimate(1, None, "this prediction"), max_memory=args.max_memory, max_models=args.max_models)
     pop = population_from_args(args)
-    res = pop.predict()
+    res = pop.predict(bands=tuple(args.bands.split(",")) if args.bands else None)
+    note = envelope_note(pop, res)
     if args.json:
-        print(dumps(res))
+        print(dumps({**res, "notes": [note] if note else []}))
         return 0
     print(f"Population: [Fe/H] = {args.feh:+.2f}, [alpha/Fe] = {args.alpha_fe:+.2f}, age = {args.age:g} Gyr, "
           f"Y = {pop.subpopulations[0].composition.y:.3f}; mass loss {pop.mass_loss.describe()}")
@@ -103,4 +144,6 @@ def run(args):
     if res.get("clump_absmag"):
         mags = "  ".join(f"{b}={v:+.2f}" for b, v in res["clump_absmag"].items())
         print(f"  clump / red HB (Teff {res['clump_teff']:.0f} K): {mags}")
+    if note:
+        print(f"  note: {note}")
     return 0
