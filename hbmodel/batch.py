@@ -511,6 +511,7 @@ def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
+    from .quantities import axis_label
     cols = summary.colnames
     keys = [c for c in cols[3:]
             if summary[c].dtype.kind in "if"
@@ -532,7 +533,7 @@ def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
             ax.errorbar(x, y, yerr=yerr, fmt="o", ms=4, capsize=2)
         else:
             ax.plot(x, y, "o", ms=4)
-        ax.set_ylabel(key, fontsize=8)
+        ax.set_ylabel(axis_label(key), fontsize=8)
         ax.grid(alpha=0.3)
     if not keys:
         axes[0].text(0.5, 0.5, "no numeric results", ha="center", va="center",

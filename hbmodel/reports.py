@@ -1,12 +1,19 @@
-"""Self-contained Markdown reports (with the PNGs beside them) for fit and distance runs,
-and the run record (configuration + hbmodel version) every result folder carries."""
+"""Self-contained Markdown reports (with the figures beside them) for fit and distance runs, the
+number formatting they share (values rounded to their uncertainty), and the run record
+(configuration + hbmodel version) every result folder carries."""
 from __future__ import annotations
 
+import math
 import platform
 
-from . import __version__
+import numpy as np
 
-__all__ = ["run_record", "markdown_report", "write_report", "save_fit_products"]
+from . import __version__
+from .quantities import text_label, unit_of
+
+__all__ = ["run_record", "format_value", "format_interval", "markdown_table", "markdown_report", "write_report",
+           "fit_report", "distance_report", "save_fit_products", "lf_failed_components", "distance_error_budget",
+           "fit_prior_rows"]
 
 
 def run_record(command: str, args) -> dict:
@@ -16,74 +23,341 @@ def run_record(command: str, args) -> dict:
             "python": platform.python_version()}
 
 
-def _fmt(v):
-    if isinstance(v, float):
-        return f"{v:.4g}"
-    if isinstance(v, dict) and {"median", "lo", "hi"} <= set(v):
-        return f"{v['median']:.4g} (+{v['hi'] - v['median']:.3g} / −{v['median'] - v['lo']:.3g})"
-    return str(v)
+# ----------------------------------------------------------------------------------- numbers
+def _finite_pos(x) -> bool:
+    return x is not None and isinstance(x, (int, float, np.floating, np.integer)) and math.isfinite(x) and x > 0
 
 
+def _decimals(err: float, sig: int = 2) -> int:
+    """Decimal places showing ``err`` to ``sig`` significant figures (negative: tens, hundreds, ...)."""
+    d = sig - 1 - int(math.floor(math.log10(abs(err))))
+    r = round(abs(err), d)
+    if r > 0 and int(math.floor(math.log10(r))) > int(math.floor(math.log10(abs(err)))):
+        d -= 1  # 0.0996 -> 0.10, not 0.100
+    return d
+
+
+def _at(v: float, d: int) -> str:
+    """``v`` rounded to ``d`` decimal places (negative ``d``: tens, hundreds ...), never "-0"."""
+    s = f"{v:.{d}f}" if d > 0 else f"{round(v, d):.0f}"
+    return s[1:] if s.startswith("-") and float(s) == 0 else s
+
+
+def format_value(value, plus=None, minus=None, *, sig: int = 2, unit: str = "") -> str:
+    """A value with its uncertainty, rounded to ``sig`` significant figures of the smaller error
+    (the value to the same decimal place): ``format_value(15.3, 0.0309, 0.0305)`` ->
+    ``"15.300 +0.031/−0.031"``; a single error gives ``"13.4820 ± 0.0040"``.  Without a usable error
+    the value keeps 4 significant figures.  ``None``/NaN values print as "—"."""
+    if value is None or not math.isfinite(float(value)):
+        return "—"
+    value = float(value)
+    errs = [float(e) for e in (plus, minus) if _finite_pos(e)]
+    suffix = f" {unit}" if unit else ""
+    if not errs:
+        return f"{value:.4g}{suffix}"
+    d = _decimals(min(errs), sig)
+    if minus is None or plus is None:
+        return f"{_at(value, d)} ± {_at(errs[0], d)}{suffix}"
+    return f"{_at(value, d)} +{_at(float(plus), d)}/−{_at(float(minus), d)}{suffix}"
+
+
+def format_interval(q: dict, *, unit: str = "") -> str:
+    """``{"median", "lo", "hi"}`` (16/50/84 %) -> ``"median +(hi-median)/−(median-lo)"``, rounded."""
+    med, lo, hi = q.get("median"), q.get("lo"), q.get("hi")
+    if med is None:
+        return "—"
+    if lo is None or hi is None:
+        return format_value(med, unit=unit)
+    return format_value(med, hi - med, med - lo, unit=unit)
+
+
+def _cell(v) -> str:
+    if v is None:
+        return "—"
+    if isinstance(v, (bool, np.bool_)):
+        return "yes" if v else "no"
+    if isinstance(v, (int, np.integer)):
+        return str(int(v))
+    if isinstance(v, (float, np.floating)):
+        return f"{float(v):.4g}" if math.isfinite(v) else "—"
+    if isinstance(v, dict) and "median" in v:
+        return format_interval(v)
+    if isinstance(v, (list, tuple)):
+        return ", ".join(_cell(x) for x in v)
+    return str(v).replace("|", "\\|")
+
+
+def markdown_table(headers, rows) -> list[str]:
+    """GitHub-flavoured Markdown table lines; cells are formatted with :func:`_cell` unless strings."""
+    out = ["| " + " | ".join(headers) + " |", "|" + "|".join("---" for _ in headers) + "|"]
+    out += ["| " + " | ".join(c if isinstance(c, str) else _cell(c) for c in r) + " |" for r in rows]
+    return out
+
+
+# ----------------------------------------------------------------------------------- generic report
 def markdown_report(title: str, *, inputs: dict, results: dict, priors: dict | None = None,
                     convergence: dict | None = None, plots: list | None = None, warnings: list | None = None,
                     notes: str | None = None) -> str:
+    """A simple report: warnings first, then tables of results (value, unit), inputs and figures."""
     lines = [f"# {title}", "", f"hbmodel {__version__}", ""]
-    lines += ["## Inputs", "", "| option | value |", "|---|---|"]
-    lines += [f"| {k} | {_fmt(v)} |" for k, v in inputs.items() if v is not None]
+    lines += _warning_lines(warnings)
+    lines += ["## Results (median, 16–84 % interval)", ""]
+    lines += markdown_table(["quantity", "value", "unit"],
+                            [[text_label(k), _cell(v), unit_of(k) or "—"] for k, v in results.items() if v is not None])
     if priors:
-        lines += ["", "## Priors", "", "| parameter | prior |", "|---|---|"]
-        lines += [f"| {k} | {_fmt(v)} |" for k, v in priors.items()]
-    lines += ["", "## Results (median, 16th-84th percentiles)", "", "| quantity | value |", "|---|---|"]
-    lines += [f"| {k} | {_fmt(v)} |" for k, v in results.items() if v is not None]
+        lines += ["", "## Priors", ""] + markdown_table(["parameter", "prior"], [[k, _cell(v)] for k, v in priors.items()])
     if convergence:
-        lines += ["", "## Convergence", "", "| figure | value |", "|---|---|"]
-        lines += [f"| {k} | {_fmt(v)} |" for k, v in convergence.items()]
-    if warnings:
-        lines += ["", "## Warnings", ""] + [f"- {w}" for w in warnings]
-    if plots:
-        lines += ["", "## Figures", ""] + [f"![{p}]({p})" for p in plots]
+        lines += ["", "## Convergence", ""] + markdown_table(["figure", "value"],
+                                                             [[k, _cell(v)] for k, v in convergence.items()])
+    lines += ["", "## Inputs", ""] + markdown_table(["option", "value"],
+                                                     [[k, _cell(v)] for k, v in inputs.items() if v is not None])
+    lines += _figure_lines(plots)
     if notes:
         lines += ["", notes]
-    lines += [""]
-    return "\n".join(lines)
+    return "\n".join(lines + [""])
 
 
-def write_report(path, title, *, force=False, **kwargs):
+def _warning_lines(warnings) -> list[str]:
+    if not warnings:
+        return ["**No warnings.**", ""]
+    return ["## Warnings", ""] + [f"- **{w}**" for w in warnings] + [""]
+
+
+def _figure_lines(plots) -> list[str]:
+    if not plots:
+        return []
+    return ["", "## Figures", ""] + [f"![{p}]({p})" + ("" if not p.endswith(".png") else
+                                                       f" ([PDF]({p[:-4]}.pdf))") for p in plots]
+
+
+def write_report(path, title, *, force=False, text=None, **kwargs):
+    """Write a report atomically: ``text`` as given, or :func:`markdown_report` of ``kwargs``."""
     from .io import atomic_write_text
-    return atomic_write_text(path, markdown_report(title, **kwargs), force=force)
+    return atomic_write_text(path, text if text is not None else markdown_report(title, **kwargs), force=force)
 
 
-def save_fit_products(est, out_dir, *, title, inputs, force=False, config=None):
-    """Write a fitted :class:`hbmodel.fit.MassLossFit`'s result.json, posterior.ecsv, plots, report.md
-    (and ``config.json`` when ``config`` is given) into ``out_dir``."""
-    import json
+# ----------------------------------------------------------------------------------- fit report
+_PARAM_UNIT = {"mass_loss": "Msun", "mass_loss_sd": "Msun", "helium_fraction": "", "delta_y": "",
+               "field_fraction": "", "rgb_mass_sd": "Msun", "age": "Gyr", "shift_colour": "mag", "shift_mag": "mag"}
+_PARAM_TEXT = {"shift_colour": "colour shift (E(B−V) and zero point)",
+               "shift_mag": "magnitude shift (distance, extinction and zero point)"}
 
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
 
-    from .io import atomic_savefig, atomic_write_json, write_table
+def fit_prior_rows(est) -> list[list[str]]:
+    """One row per sampled parameter: name, prior type (Gaussian / uniform), its numbers, unit."""
+    pri = est._pri
+    rows = []
+    for n in est.param_names_:
+        unit = _PARAM_UNIT.get(n, "")
+        name = _PARAM_TEXT.get(n, text_label(n))
+        if n == "age":
+            rows.append([name, "Gaussian", f"mean {est.age0_:g}, sd {pri.age_sd_gyr:g}", unit])
+        elif n in ("shift_colour", "shift_mag"):
+            i = 0 if n == "shift_colour" else 1
+            mu, sd = est._shift_mu[i], math.sqrt(est._shift_cov[i, i])
+            rows.append([name, "Gaussian (correlated)", f"mean {mu:.3f}, sd {sd:.3f}", unit])
+        else:
+            lo, hi = est._bnds[n]
+            rows.append([name, "uniform", f"[{lo:.4g}, {hi:.4g}]", unit or "—"])
+    if est._has_cmd:
+        dm, dmsd = pri.distance_modulus
+        e, esd = pri.ebv
+        rows.append(["distance modulus (enters the shifts)", "Gaussian", f"mean {dm:g}, sd {dmsd:g}", "mag"])
+        rows.append(["E(B − V) (enters the shifts)", "Gaussian, E ≥ 0", f"mean {e:g}, sd {esd:g}", "mag"])
+        if est.zero_points:
+            cs = est._nuis["cov4"]
+            rows.append(["colour / magnitude zero points", "Gaussian",
+                         f"sd {math.sqrt(cs[2, 2]):g} / {math.sqrt(cs[3, 3]):g}", "mag"])
+    for r in rows:
+        r[3] = r[3] or "—"
+    return rows
+
+
+def _convergence_lines(conv: dict, sampler: str) -> list[str]:
+    lines = ["## Convergence", ""]
+    if sampler == "laplace":
+        return lines + ["Laplace approximation at the MAP (no chain).", ""]
+    tau = conv.get("autocorr_time") or {}
+    n_steps = conv.get("n_steps") or 0
+    ok = {k: t is not None and math.isfinite(t) and t > 0 for k, t in tau.items()}
+    rows = [[_PARAM_TEXT.get(k, text_label(k)), f"{t:.1f}" if ok[k] else "—",
+             f"{n_steps / t:.0f}" if ok[k] else "—"] for k, t in tau.items()]
+    lines += markdown_table(["parameter", "autocorrelation time τ [steps]", "chain length / τ"], rows)
+    acc = conv.get("acceptance")
+    n_eff = conv.get("n_eff")
+    lines += [""] + markdown_table(["figure", "value"], [
+        ["chain length [steps]", str(int(n_steps))],
+        ["effective independent draws n_eff", str(int(round(n_eff))) if n_eff is not None else "—"],
+        ["mean acceptance fraction", f"{acc:.2f}" if acc is not None else "—"],
+        ["converged (post-burn-in chain > 50 τ)", "yes" if conv.get("converged") else "no"]])
+    return lines + [""]
+
+
+def _comparison_lines(mc: dict | None) -> list[str]:
+    if not mc:
+        return []
+    rows = []
+    best = min(v["bic"] for v in mc["models"].values())
+    for m, v in sorted(mc["models"].items(), key=lambda kv: kv[1]["bic"]):
+        rows.append([m + (" (preferred)" if m == mc["preferred"] else ""), str(v["n_params"]),
+                     f"{v['max_log_likelihood']:.1f}", f"{v['bic']:.1f}", f"{v['bic'] - best:.1f}",
+                     f"{v['aic']:.1f}"])
+    return (["## Model comparison", ""]
+            + markdown_table(["model", "parameters", "max ln L", "BIC", "ΔBIC", "AIC"], rows)
+            + ["", f"Preferred by BIC: **{mc['preferred']}** (ΔBIC = {mc['delta_bic']:.1f} over "
+                   f"{mc['runner_up']}: {mc['strength']} evidence); preferred by AIC: {mc['preferred_aic']}.", ""])
+
+
+def fit_report(est, res: dict, *, title: str, inputs: dict, plots=()) -> str:
+    """Markdown report of a fitted :class:`hbmodel.fit.MassLossFit` and its ``result()``."""
+    lines = [f"# {title}", "", f"hbmodel {__version__}; model **{res['model']}**, sampler {res['sampler']}", ""]
+    lines += _warning_lines(res.get("warnings"))
+    gof = res.get("goodness_of_fit")
+    if gof:
+        verdict = "acceptable" if gof["p_value"] >= 0.01 else "POOR: the model does not describe the CMD"
+        lines += [f"**Goodness of fit:** posterior-predictive p = {gof['p_value']:.2f} ({verdict}); Hess Poisson "
+                  f"deviance {gof['deviance_observed']:.1f} observed vs {gof['deviance_replicated']:.1f} for "
+                  f"replicates ({gof['n_draws']} posterior draws).", ""]
+    reg = res.get("region")
+    b0, b1 = (res.get("bands") or ["?", "?"])[:2]
+    if reg:
+        lines += [f"**Fitted region:** {b0} − {b1} from {reg[0]:.2f} to {reg[1]:.2f} mag, {b0} from "
+                  f"{reg[2]:.2f} to {reg[3]:.2f} mag; {res.get('n_stars')} stars.", ""]
+    if res.get("n_masses"):
+        lines += [f"**Measured masses:** {res['n_masses']}.", ""]
+    lines += ["## Results (median, 16–84 % interval)", ""]
+    rows = [[text_label(k), format_interval(v), unit_of(k) or "—"] for k, v in res.items()
+            if isinstance(v, dict) and "median" in v and v["median"] is not None]
+    lines += markdown_table(["quantity", "value", "unit"], rows) + [""]
+    lines += ["## Priors", ""] + markdown_table(["parameter", "type", "prior", "unit"], fit_prior_rows(est)) + [""]
+    lines += _convergence_lines(res.get("convergence") or {}, res.get("sampler"))
+    lines += _comparison_lines(res.get("model_comparison"))
+    zp = res.get("zero_point_sensitivity")
+    if zp:
+        lines += ["## Zero-point sensitivity", "",
+                  f"Mass loss at the MAP with the zero points free {zp['mass_loss_map_free']:.4f} Msun, fixed at "
+                  f"zero {zp['mass_loss_map_fixed']:.4f} Msun (shift {zp['shift']:+.4f} Msun).", ""]
+    lines += ["## Inputs", ""] + markdown_table(["option", "value"],
+                                                 [[k, _cell(v)] for k, v in inputs.items() if v is not None])
+    lines += _figure_lines(list(plots))
+    return "\n".join(lines + [""])
+
+
+def save_fit_products(est, out_dir, *, title, inputs, force=False, config=None, truth=None):
+    """Write a fitted :class:`hbmodel.fit.MassLossFit`'s result.json, posterior.ecsv, figures (PNG +
+    PDF), report.md (and ``config.json`` when ``config`` is given) into ``out_dir``; ``truth`` (dict of
+    true parameter values, e.g. in the demo) is marked in the corner and HB-mass figures."""
+    from . import plots
+    from .io import atomic_write_json, write_table
+    from .plot_style import save_figure
     res = est.result()
     atomic_write_json(out_dir / "result.json", res, force=force)
     write_table(est.posterior_table(), out_dir / "posterior.ecsv", force=force)
-    figs = {"corner.png": est.plot_corner(), "hb_mass.png": est.plot_hb_mass()}
+    figs = {"corner.png": plots.plot_corner(est, truth=truth)[0],
+            "hb_mass.png": plots.plot_hb_mass(est, truth=truth)[0]}
     if getattr(est, "_has_cmd", False):
-        figs["hess.png"] = est.plot_hess()
-        figs["cmd.png"] = est.plot_cmd()
+        figs["cmd.png"] = plots.plot_fit_cmd(est)[0]
+        figs["hess.png"] = plots.plot_fit_hess(est)[0]
+        gof = res.get("goodness_of_fit") or {}
+        figs["ppc.png"] = plots.plot_posterior_predictive(est, p_value=gof.get("p_value"))[0]
     for name, fig in figs.items():
-        atomic_savefig(fig, out_dir / name, force=force, dpi=90)
-        plt.close(fig)
+        save_figure(fig, out_dir / name, force=force)
     if config is not None:
         atomic_write_json(out_dir / "config.json", config, force=force)
-    pri = est.priors
-    conv = res["convergence"]
-    warn = [] if conv["converged"] else ["the chain did not converge (length < 50 autocorrelation times)"]
-    write_report(out_dir / "report.md", title, force=force, inputs=inputs,
-                 priors=None if pri is None else {
-                     "distance modulus": pri.distance_modulus, "E(B-V)": pri.ebv, "age sd [Gyr]": pri.age_sd_gyr,
-                     "mass-loss spread": pri.mass_loss_sd, "field fraction": pri.field_fraction},
-                 results={k: v for k, v in res.items() if isinstance(v, dict) and "median" in v},
-                 convergence=conv, plots=list(figs), warnings=warn,
-                 notes=("Model comparison: " + json.dumps(res.get("model_comparison"), default=str))
-                 if res.get("model_comparison") else None)
+    write_report(out_dir / "report.md", title, force=force,
+                 text=fit_report(est, res, title=title, inputs=inputs, plots=list(figs)))
     return res
+
+
+# ----------------------------------------------------------------------------------- distance report
+_LF_COMPONENT_OF = {"peak_mag": "clump", "sigma_mag": "clump", "fraction_clump": "clump",
+                    "background_slope": "RGB background", "quad_a1": "RGB background", "quad_a2": "RGB background",
+                    "bump_offset": "RGB bump", "bump_ratio": "RGB bump", "agb_offset": "AGB bump",
+                    "agb_ratio": "AGB bump"}
+
+
+def lf_failed_components(lf) -> list[str]:
+    """Components of a clump-LF fit (:class:`hbmodel.clump_lf.ClumpLFResult`) with an ill-determined
+    parameter: no finite Hessian error, or pinned on a bound of its range."""
+    from .clump_lf import _build_model
+    model = _build_model(lf.mag_range[0], lf.mag_range[1], lf.components, lf.background)
+    out = []
+    for i, n in enumerate(lf.param_names):
+        v, e = lf.params.get(n), lf.param_errors.get(n)
+        span = model.upper[i] - model.lower[i]
+        pinned = v is not None and min(v - model.lower[i], model.upper[i] - v) <= 1e-5 * span
+        bad = e is None or not math.isfinite(e) or e <= 0 or pinned
+        comp = _LF_COMPONENT_OF.get(n, n)
+        if bad and comp not in out:
+            out.append(comp)
+    return out
+
+
+def lf_warning(lf) -> str | None:
+    """The report line of an unclean clump-LF fit: which component failed, where the errors come from."""
+    if lf.converged:
+        return None
+    failed = lf_failed_components(lf)
+    what = (f"the {' and '.join(failed)} component{'s are' if len(failed) > 1 else ' is'} ill-determined "
+            "(no finite curvature or a parameter on its bound)") if failed else "the optimiser stopped early"
+    src = (f"the clump-peak error comes from a bootstrap of {len(lf.boot_peaks)} refits"
+           if lf.peak_mag_err_boot is not None and lf.boot_peaks is not None
+           else "the clump-peak error is the curvature error of the remaining parameters and may be optimistic")
+    return f"the clump-LF fit is unclean: {what}; {src}"
+
+
+def distance_error_budget(res) -> dict:
+    """Statistical and systematic 1-sigma terms (mag) of a :class:`hbmodel.clump_distance.DistanceResult`:
+    clump peak and reddening are statistical (shrink with more stars); the absolute-magnitude calibration
+    and the population uncertainty ([Fe/H], age) are systematic (shared by every field)."""
+    from .clump_distance import CALIBRATION_SD_MAG
+    r_band = res.extinction_mag / res.ebv if res.ebv > 0 else 0.0
+    peak = float(res.clump_peak_mag_err)
+    redd = float(r_band * res.ebv_err)
+    cal = float(CALIBRATION_SD_MAG)
+    pop = float(math.sqrt(max(res.clump_absmag_err ** 2 - cal ** 2, 0.0)))
+    stat, sys_ = math.hypot(peak, redd), math.hypot(cal, pop)
+    return {"clump_peak": peak, "reddening": redd, "calibration": cal, "population": pop,
+            "statistical": stat, "systematic": sys_, "total": math.hypot(stat, sys_)}
+
+
+def distance_report(res, *, title: str, inputs: dict, plots=()) -> str:
+    """Markdown report of a red-clump distance: warnings, the distance with statistical and systematic
+    errors apart, the error budget, every measured quantity with its unit, every input."""
+    b = res.band
+    eb = distance_error_budget(res)
+    dm, dk = res.distance_modulus, res.distance_kpc
+    warn = [w for w in (lf_warning(res.lf),) if w]
+    lines = [f"# {title}", "", f"hbmodel {__version__}", ""] + _warning_lines(warn)
+    d = _decimals(min(eb["statistical"], eb["systematic"]) if eb["systematic"] > 0 else eb["statistical"])
+    lines += [f"**Distance modulus:** (m − M)0 = {_at(dm['median'], d)} ± {_at(eb['statistical'], d)} (stat) "
+              f"± {_at(eb['systematic'], d)} (sys) mag; distance {format_interval(dk)} kpc (16–84 %, all errors).",
+              ""]
+    lines += ["## Error budget", ""] + markdown_table(["term", "σ [mag]", "type"], [
+        [f"clump peak in {b} ({'bootstrap' if res.lf.peak_mag_err_boot is not None else 'LF-fit curvature'})",
+         f"{eb['clump_peak']:.4f}", "statistical"],
+        [f"reddening (A_{b} error)", f"{eb['reddening']:.4f}", "statistical"],
+        ["clump absolute-magnitude calibration", f"{eb['calibration']:.4f}", "systematic"],
+        ["population ([Fe/H] and age uncertainty)", f"{eb['population']:.4f}", "systematic"],
+        ["**statistical total**", f"{eb['statistical']:.4f}", ""],
+        ["**systematic total**", f"{eb['systematic']:.4f}", ""],
+        ["**total**", f"{eb['total']:.4f}", ""]]) + [""]
+    lo, hi = res.lf.mag_range
+    lines += ["## Results", ""] + markdown_table(["quantity", "value", "unit"], [
+        ["distance modulus (m − M)0 (16–84 %)", format_interval(dm), "mag"],
+        ["distance (16–84 %)", format_interval(dk), "kpc"],
+        [f"observed clump peak {b}", format_value(res.clump_peak_mag, res.clump_peak_mag_err), "mag"],
+        [f"clump width σ({b})", format_value(res.lf.sigma_mag, res.lf.sigma_mag_err), "mag"],
+        [f"model clump M_{b}", format_value(res.clump_absmag, res.clump_absmag_err), "mag"],
+        ["population correction (vs the solar-neighbourhood clump)", f"{res.population_correction:+.3f}", "mag"],
+        ["E(B − V)", format_value(res.ebv, res.ebv_err) if res.ebv_err > 0 else f"{res.ebv:.3f} (fixed)", "mag"],
+        [f"extinction A_{b}", format_value(res.extinction_mag, eb["reddening"]) if eb["reddening"] > 0
+         else f"{res.extinction_mag:.3f}", "mag"],
+        ["stars in the LF fit window", str(res.n_stars), "—"],
+        [f"LF fit window in {b}", f"{lo:.2f} – {hi:.2f}", "mag"],
+        ["LF components", ", ".join(res.lf.components) + f" ({res.lf.background} background)", "—"],
+        ["LF fit converged", "yes" if res.lf.converged else "no", "—"]]) + [""]
+    lines += ["## Inputs", ""] + markdown_table(["input", "value"],
+                                                 [[k, _cell(v)] for k, v in inputs.items() if v is not None])
+    lines += _figure_lines(list(plots))
+    return "\n".join(lines + [""])

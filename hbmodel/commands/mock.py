@@ -100,9 +100,12 @@ def run(args):
     table = make_mock(pop, bands=bands, rng=rng, n_hb=args.n_hb, total_mass_msun=args.total_mass, obs=obs)
     write_table(table, args.out, force=args.force)
     if args.plot:
-        from ..plots import plot_cmd
-        colour = (bands[0], bands[1]) if len(bands) > 1 else (bands[0], bands[0])
-        fig, _ = plot_cmd(table, bands[0], colour, title=f"mock: [Fe/H]={args.feh:+.2f}, {args.age:g} Gyr")
+        from ..plots import plot_cmd, plot_luminosity_function
+        title = f"mock: [Fe/H] = {args.feh:+.2f}, {args.age:g} Gyr"
+        if len(bands) > 1:  # a CMD; one band has no colour: its luminosity function instead
+            fig, _ = plot_cmd(table, bands[0], (bands[0], bands[1]), title=title)
+        else:
+            fig, _ = plot_luminosity_function(table, bands[0], title=title)
         atomic_savefig(fig, args.plot, force=args.force)
     counts = {ph: int(np.sum(table["phase"] == ph)) for ph in ("rgb", "hb", "agb", "field")}
     print(f"wrote {len(table)} stars to {args.out} "
