@@ -324,14 +324,14 @@ def plot_corner(est, keys=None, *, truth: dict | None = None, width=None):
             elif j > 0:
                 ax.tick_params(labelleft=False)
             ax.tick_params(labelsize=6)
-    if truth:
-        axes[0, 0].plot([], [], color=OKABE_ITO["vermillion"], label="truth")
-    axes[0, 0].plot([], [], color=OKABE_ITO["blue"], label="median")
-    axes[0, 0].plot([], [], color=OKABE_ITO["blue"], ls="--", label="16 / 84 %")
-    if d > 1:
-        fig.legend(*axes[0, 0].get_legend_handles_labels(), loc="upper right", bbox_to_anchor=(0.98, 0.98))
+    from matplotlib.lines import Line2D
+    handles = ([Line2D([], [], color=OKABE_ITO["vermillion"], label="truth")] if truth else []) + [
+        Line2D([], [], color=OKABE_ITO["blue"], label="median"),
+        Line2D([], [], color=OKABE_ITO["blue"], ls="--", label="16 / 84 %")]
+    if d > 1:  # the empty upper triangle holds the legend
+        fig.legend(handles=handles, loc="upper right", bbox_to_anchor=(0.98, 0.98))
     else:
-        axes[0, 0].legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0)
+        axes[0, 0].legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0)
     return fig, axes
 
 

@@ -31,16 +31,20 @@ def _finite_pos(x) -> bool:
 def _decimals(err: float, sig: int = 2) -> int:
     """Decimal places showing ``err`` to ``sig`` significant figures (negative: tens, hundreds, ...)."""
     d = sig - 1 - int(math.floor(math.log10(abs(err))))
-    r = round(abs(err), d)
+    r = float(_at(abs(err), d))
     if r > 0 and int(math.floor(math.log10(r))) > int(math.floor(math.log10(abs(err)))):
         d -= 1  # 0.0996 -> 0.10, not 0.100
     return d
 
 
 def _at(v: float, d: int) -> str:
-    """``v`` rounded to ``d`` decimal places (negative ``d``: tens, hundreds ...), never "-0"."""
-    s = f"{v:.{d}f}" if d > 0 else f"{round(v, d):.0f}"
-    return s[1:] if s.startswith("-") and float(s) == 0 else s
+    """``v`` rounded half-up at ``d`` decimal places (negative ``d``: tens, hundreds ...) of its decimal
+    form to 12 significant figures (so 0.0305, or 15.3 - 15.2695 = 0.030499999999999, -> "0.031" as a
+    reader rounds it, not the binary neighbour's "0.030"), never "-0"."""
+    from decimal import ROUND_HALF_UP, Decimal
+    q = Decimal(f"{float(v):.12g}").quantize(Decimal(1).scaleb(-d), rounding=ROUND_HALF_UP)
+    s = format(q, "f") if d > 0 else format(q.quantize(Decimal(1)), "f")
+    return s[1:] if s.startswith("-") and Decimal(s) == 0 else s
 
 
 def format_value(value, plus=None, minus=None, *, sig: int = 2, unit: str = "") -> str:
