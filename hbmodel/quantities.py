@@ -24,7 +24,7 @@ QUANTITIES = {
     "clump_absmag": ("model clump absolute magnitude", "mag", r"$M_\mathrm{RC}$"),
     "population_correction": ("population correction", "mag", r"$\Delta M_\mathrm{pop}$"),
     "extinction_mag": ("extinction", "mag", "A"),
-    "n_stars": ("stars in the fit", "", r"$N_\star$"),
+    "n_stars": ("stars in the fit", "", "stars in the fit"),
     "hb_type": ("HB type (B − R)/(B + V + R)", "", "HB type"),
     "fit_time_s": ("fit time", "s", "fit time"),
 }

@@ -382,3 +382,17 @@ def test_report_for_demo_distance_has_no_bare_floats(clump_lf):
     text = distance_report(res, title="x", inputs={"band": "Ks"})
     assert not re.search(r"\d\.\d{6,}", text)   # no 15-digit floats
     assert "No warnings" in text
+
+
+def test_batch_summary_panels_carry_units():
+    # regression: summary.png labelled its panels with bare column names
+    from astropy.table import Table
+
+    from hbmodel.batch import summary_figure
+    t = Table({"name": ["f1", "f2"], "status": ["done", "done"], "reason": ["", ""],
+               "distance_modulus": [13.8, 14.1], "distance_modulus_lo": [13.75, 14.0],
+               "distance_modulus_hi": [13.85, 14.2], "ebv": [0.3, 0.35], "distance_kpc": [5.8, 6.6]})
+    fig = summary_figure(t)
+    labels = [ax.get_ylabel() for ax in fig.axes]
+    assert labels == [axis_label("distance_modulus"), axis_label("ebv"), axis_label("distance_kpc")]
+    assert all(lb.endswith(("[mag]", "[kpc]")) for lb in labels)
