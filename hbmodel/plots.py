@@ -324,6 +324,8 @@ def plot_corner(est, keys=None, *, truth: dict | None = None, width=None):
             elif j > 0:
                 ax.tick_params(labelleft=False)
             ax.tick_params(labelsize=6)
+            ax.minorticks_off()  # 25 panels: minor ticks only clutter (and slow the drawing)
+            ax.locator_params(nbins=4)
     from matplotlib.lines import Line2D
     handles = ([Line2D([], [], color=OKABE_ITO["vermillion"], label="truth")] if truth else []) + [
         Line2D([], [], color=OKABE_ITO["blue"], label="median"),
