@@ -23,7 +23,7 @@ import numpy as np
 
 __all__ = ["OKABE_ITO", "COLUMN_WIDTH_IN", "PAGE_WIDTH_IN", "STYLE", "styled", "new_figure", "mag_label",
            "colour_label", "absmag_label", "TEFF_LABEL", "FEH_LABEL", "HB_MASS_LABEL", "invert_mag_axis",
-           "place_legend", "points_under_legend", "save_figure", "format_feh", "SEQUENTIAL_CMAP",
+           "place_legend", "points_under_legend", "legend_of", "save_figure", "format_feh", "SEQUENTIAL_CMAP",
            "DIVERGING_CMAP"]
 
 #: Okabe & Ito (2008) colour-blind-safe palette.
@@ -133,10 +133,10 @@ def points_under_legend(ax, legend, x, y, renderer=None) -> int:
     return int(inside.sum())
 
 
-def place_legend(ax, x=None, y=None, *, max_covered: int = 0, **kwargs):
+def place_legend(ax, x=None, y=None, *, max_covered: int = 0, outside: str = "right", **kwargs):
     """A legend at the location covering the fewest of the points ``(x, y)`` (data units); if every
-    inside location covers more than ``max_covered`` points, the legend goes outside, right of the
-    axes.  Without points: matplotlib's ``loc="best"`` (it knows the drawn lines)."""
+    inside location covers more than ``max_covered`` points, the legend goes outside the axes, to the
+    ``outside`` ("right" or "below", for a narrow panel).  Without points: matplotlib's ``loc="best"``."""
     import matplotlib
     with matplotlib.rc_context(_style()):
         if x is None:
@@ -155,7 +155,14 @@ def place_legend(ax, x=None, y=None, *, max_covered: int = 0, **kwargs):
                 break
         if best[0] <= max_covered:
             return ax.legend(loc=best[1], **kwargs)
+        if outside == "below" and len(fig.axes) == 1:  # below the x label, room made by the layout
+            return fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", ncols=2, **kwargs)
         return ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0, **kwargs)
+
+
+def legend_of(ax):
+    """The legend drawn for ``ax``: its own, or the figure's (a legend placed below a single panel)."""
+    return ax.get_legend() or (ax.figure.legends[0] if ax.figure.legends else None)
 
 
 def save_figure(fig, path, *, force: bool = False, pdf: bool = True) -> list[Path]:

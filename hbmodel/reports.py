@@ -280,30 +280,39 @@ _LF_COMPONENT_OF = {"peak_mag": "clump", "sigma_mag": "clump", "fraction_clump":
                     "agb_ratio": "AGB bump"}
 
 
-def lf_failed_components(lf) -> list[str]:
-    """Components of a clump-LF fit (:class:`hbmodel.clump_lf.ClumpLFResult`) with an ill-determined
-    parameter: no finite Hessian error, or pinned on a bound of its range."""
+def _lf_problems(lf) -> dict:
+    """{component: reason} of a clump-LF fit's ill-determined parameters.  A parameter pinned on a bound
+    of its range is the cause (its neighbours then lose their curvature too, e.g. the bump offset of an
+    undetected bump), so pinned parameters are reported alone when there are any; otherwise those
+    without a finite curvature error."""
     from .clump_lf import _build_model
     model = _build_model(lf.mag_range[0], lf.mag_range[1], lf.components, lf.background)
-    out = []
+    pinned, singular = {}, {}
     for i, n in enumerate(lf.param_names):
         v, e = lf.params.get(n), lf.param_errors.get(n)
-        span = model.upper[i] - model.lower[i]
-        pinned = v is not None and min(v - model.lower[i], model.upper[i] - v) <= 1e-5 * span
-        bad = e is None or not math.isfinite(e) or e <= 0 or pinned
+        lo, hi = float(model.lower[i]), float(model.upper[i])
         comp = _LF_COMPONENT_OF.get(n, n)
-        if bad and comp not in out:
-            out.append(comp)
-    return out
+        if v is not None and min(v - lo, hi - v) <= 1e-5 * (hi - lo):
+            pinned.setdefault(comp, f"{n} = {v:g} on the bound of its range [{lo:g}, {hi:g}]")
+        elif e is None or not math.isfinite(e) or e <= 0:
+            singular.setdefault(comp, f"{n} has no finite curvature error")
+    return pinned or singular
+
+
+def lf_failed_components(lf) -> list[str]:
+    """Components of a clump-LF fit (:class:`hbmodel.clump_lf.ClumpLFResult`) with an ill-determined
+    parameter (see :func:`_lf_problems`); empty for a clean fit with finite errors."""
+    return list(_lf_problems(lf))
 
 
 def lf_warning(lf) -> str | None:
-    """The report line of an unclean clump-LF fit: which component failed, where the errors come from."""
+    """The report line of an unclean clump-LF fit: which component failed and why, where the errors
+    come from."""
     if lf.converged:
         return None
-    failed = lf_failed_components(lf)
-    what = (f"the {' and '.join(failed)} component{'s are' if len(failed) > 1 else ' is'} ill-determined "
-            "(no finite curvature or a parameter on its bound)") if failed else "the optimiser stopped early"
+    probs = _lf_problems(lf)
+    what = ("; ".join(f"the {c} component is ill-determined ({why})" for c, why in probs.items())
+            if probs else "the optimiser stopped early")
     src = (f"the clump-peak error comes from a bootstrap of {len(lf.boot_peaks)} refits"
            if lf.peak_mag_err_boot is not None and lf.boot_peaks is not None
            else "the clump-peak error is the curvature error of the remaining parameters and may be optimistic")

@@ -13,7 +13,7 @@ from hbmodel import plots
 from hbmodel.cli import main
 from hbmodel.fit import MassLossFit, Priors
 from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.plot_style import (COLUMN_WIDTH_IN, OKABE_ITO, PAGE_WIDTH_IN, format_feh, new_figure,
+from hbmodel.plot_style import (COLUMN_WIDTH_IN, OKABE_ITO, PAGE_WIDTH_IN, format_feh, legend_of, new_figure,
                                 points_under_legend)
 from hbmodel.population import MassLoss, Population
 from hbmodel.quantities import axis_label
@@ -176,8 +176,8 @@ def test_clump_lf_plot_names_band_and_draws_the_bump_on_the_background(clump_lf)
     bg = lines["RGB background"]
     # regression: the bump was a flat zero line; now it sits on the background and rises above it
     assert np.all(bump.get_ydata() >= bg.get_ydata() - 1e-9) and np.max(bump.get_ydata() - bg.get_ydata()) > 1
-    assert _legend_is_clear(ax, ax.get_legend(), *_hist_points(ax))
-    assert ax.get_legend().get_title().get_text() == ""  # a clean fit has no failure note
+    assert _legend_is_clear(ax, legend_of(ax), *_hist_points(ax))
+    assert legend_of(ax).get_title().get_text() == ""  # a clean fit has no failure note
 
 
 def _hist_points(ax):
@@ -196,7 +196,18 @@ def test_unclean_lf_fit_names_the_failed_component(clump_lf):
     assert "bootstrap of 60 refits" in lf_warning(boot)
     assert lf_warning(r) is None
     _, ax = plots.plot_clump_lf(m, bad, band="Ks")
-    assert "RGB bump" in ax.get_legend().get_title().get_text()
+    assert "RGB bump" in legend_of(ax).get_title().get_text()
+    assert _legend_is_clear(ax, legend_of(ax), *_hist_points(ax))
+
+
+def test_bump_on_its_bound_is_named_alone(clump_lf):
+    # regression (the README's Tern-South field): bump_ratio = 0 on its bound made the Hessian singular, so
+    # every error was NaN and every component was called failed; the bound parameter is the cause
+    m, r = clump_lf
+    nan = {k: float("nan") for k in r.param_errors}
+    bad = dataclasses.replace(r, converged=False, param_errors=nan, params=dict(r.params, bump_ratio=0.0))
+    assert lf_failed_components(bad) == ["RGB bump"]
+    assert "bump_ratio = 0 on the bound" in lf_warning(bad)
 
 
 # ------------------------------------------------------------------------------------ fit figures
