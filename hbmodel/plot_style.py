@@ -133,10 +133,11 @@ def points_under_legend(ax, legend, x, y, renderer=None) -> int:
     return int(inside.sum())
 
 
-def place_legend(ax, x=None, y=None, *, max_covered: int = 0, outside: str = "right", **kwargs):
+def place_legend(ax, x=None, y=None, *, max_covered: int = 0, outside: str = "auto", **kwargs):
     """A legend at the location covering the fewest of the points ``(x, y)`` (data units); if every
-    inside location covers more than ``max_covered`` points, the legend goes outside the axes, to the
-    ``outside`` ("right" or "below", for a narrow panel).  Without points: matplotlib's ``loc="best"``."""
+    inside location covers more than ``max_covered`` points, the legend goes outside the axes: "below"
+    (the panel keeps its width; "auto" for a one-panel figure) or to the "right" (the default "auto"
+    with several panels).  Without points: matplotlib's ``loc="best"``."""
     import matplotlib
     with matplotlib.rc_context(_style()):
         if x is None:
@@ -155,6 +156,8 @@ def place_legend(ax, x=None, y=None, *, max_covered: int = 0, outside: str = "ri
                 break
         if best[0] <= max_covered:
             return ax.legend(loc=best[1], **kwargs)
+        if outside == "auto":
+            outside = "below" if len(fig.axes) == 1 else "right"
         if outside == "below" and len(fig.axes) == 1:  # below the x label, room made by the layout
             return fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", ncols=2, **kwargs)
         return ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0, **kwargs)

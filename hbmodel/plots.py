@@ -195,7 +195,7 @@ def plot_clump_lf(mag, result, ax=None, *, bin_mag: float | None = None, band: s
         leg_title = "unclean: " + (", ".join(failed) if failed else "optimiser") + " ill-determined"
     centres = 0.5 * (edges[1:] + edges[:-1])
     place_legend(ax, np.concatenate([centres, grid]), np.concatenate([counts, total]), title=leg_title,
-                 title_fontsize=6.5, outside="below")
+                 title_fontsize=6.5)
     return fig, ax
 
 

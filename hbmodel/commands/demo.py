@@ -23,7 +23,8 @@ example:
 
 
 def add_arguments(p):
-    p.add_argument("--out", default="hbmodel_demo_output", help="report folder (default hbmodel_demo_output)")
+    p.add_argument("--out", default="hbmodel_demo_output",
+                   help="report folder (default hbmodel_demo_output, in the current directory)")
     p.add_argument("--force", action="store_true", help="write into an existing report folder")
     p.add_argument("--quick", action="store_true", help="shorter chains (for tests)")
 
@@ -144,7 +145,7 @@ def run(args):
                 "ages [Gyr]": f"{s['age_range'][0]:g} – {s['age_range'][1]:g}, constant star formation",
                 "Reimers η": f"{s['eta']:g} ± {s['eta_sd']:g}", "extinction law": "F99, R_V = 3.1",
                 "clump calibration σ [mag]": CALIBRATION_SD_MAG}))
-    lines += ["", f"report folder: {out}   ({time.perf_counter() - t0:.0f} s)"]
+    lines += ["", f"report folder: {out.resolve()}   ({time.perf_counter() - t0:.0f} s)"]
     text = "\n".join(lines)
     from ..io import atomic_write_text
     atomic_write_text(out / "summary.txt", text + "\n", force=True)

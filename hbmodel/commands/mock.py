@@ -52,7 +52,8 @@ def add_arguments(p):
 
 
 def run(args):
-    from ..io import atomic_savefig, read_catalog, write_table
+    from ..io import read_catalog, write_table
+    from ..plot_style import save_figure
     from ..mock import ObservationSpec, make_mock
 
     bands = [b.strip() for b in args.bands.split(",") if b.strip()]
@@ -106,7 +107,7 @@ def run(args):
             fig, _ = plot_cmd(table, bands[0], (bands[0], bands[1]), title=title)
         else:
             fig, _ = plot_luminosity_function(table, bands[0], title=title)
-        atomic_savefig(fig, args.plot, force=args.force)
+        save_figure(fig, args.plot, force=args.force, pdf=False)
     counts = {ph: int(np.sum(table["phase"] == ph)) for ph in ("rgb", "hb", "agb", "field")}
     print(f"wrote {len(table)} stars to {args.out} "
           + ", ".join(f"{k}={v}" for k, v in counts.items() if v))
