@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 import platform
+import re
 
 import numpy as np
 
@@ -13,7 +14,7 @@ from .quantities import text_label, unit_of
 
 __all__ = ["run_record", "format_value", "format_interval", "markdown_table", "markdown_report", "write_report",
            "fit_report", "distance_report", "save_fit_products", "lf_failed_components", "distance_error_budget",
-           "fit_prior_rows"]
+           "fit_prior_rows", "markdown_to_html"]
 
 
 def run_record(command: str, args) -> dict:
@@ -130,14 +131,100 @@ def _warning_lines(warnings) -> list[str]:
 def _figure_lines(plots) -> list[str]:
     if not plots:
         return []
-    return ["", "## Figures", ""] + [f"![{p}]({p})" + ("" if not p.endswith(".png") else
-                                                       f" ([PDF]({p[:-4]}.pdf))") for p in plots]
+    out = ["", "## Figures"]
+    for p in plots:
+        out += ["", f"![{p}]({p})" + (f" ([PDF]({p[:-4]}.pdf))" if p.endswith(".png") else "")]
+    return out
 
 
-def write_report(path, title, *, force=False, text=None, **kwargs):
-    """Write a report atomically: ``text`` as given, or :func:`markdown_report` of ``kwargs``."""
+def write_report(path, title, *, force=False, text=None, html=True, **kwargs):
+    """Write a report atomically: ``text`` as given, or :func:`markdown_report` of ``kwargs``; with
+    ``html`` also ``report.html`` beside it, the figures embedded (one file, viewable offline)."""
+    from pathlib import Path
+
     from .io import atomic_write_text
-    return atomic_write_text(path, text if text is not None else markdown_report(title, **kwargs), force=force)
+    path = Path(path)
+    text = text if text is not None else markdown_report(title, **kwargs)
+    out = atomic_write_text(path, text, force=force)
+    if html:
+        atomic_write_text(path.with_suffix(".html"), markdown_to_html(text, path.parent), force=force)
+    return out
+
+
+_INLINE = [(re.compile(r"!\[([^\]]*)\]\(([^)]+)\)"), "img"), (re.compile(r"\[([^\]]+)\]\(([^)]+)\)"), "a"),
+           (re.compile(r"\*\*(.+?)\*\*"), "b"), (re.compile(r"`([^`]+)`"), "code")]
+
+
+def _inline(text: str, base_dir) -> str:
+    """Escape, then render images (embedded as data URIs when the file exists), links, bold and code."""
+    import base64
+    import html as _html
+    from pathlib import Path
+    out = _html.escape(text, quote=False)
+
+    def img(m):
+        alt, src = m.group(1), _html.unescape(m.group(2))
+        f = Path(base_dir) / src
+        if f.suffix.lower() == ".png" and f.is_file():
+            data = base64.b64encode(f.read_bytes()).decode("ascii")
+            return f'<img alt="{_html.escape(alt)}" src="data:image/png;base64,{data}" style="max-width:100%">'
+        return f"[{_html.escape(alt)}]"
+    out = _INLINE[0][0].sub(img, out)
+    out = _INLINE[1][0].sub(lambda m: f'<a href="{m.group(2)}">{m.group(1)}</a>', out)
+    out = _INLINE[2][0].sub(r"<b>\1</b>", out)
+    return _INLINE[3][0].sub(r"<code>\1</code>", out)
+
+
+def markdown_to_html(text: str, base_dir=".") -> str:
+    """A self-contained HTML page of a report written by this module (headings, paragraphs, lists,
+    tables, bold, code, links; PNG figures from ``base_dir`` embedded), so it opens offline as one file."""
+    import html as _html
+    lines = text.split("\n")
+    body, para, i = [], [], 0
+
+    def flush():
+        if para:
+            body.append("<p>" + " ".join(_inline(x, base_dir) for x in para) + "</p>")
+            para.clear()
+    while i < len(lines):
+        ln = lines[i]
+        if ln.startswith("#"):
+            flush()
+            level = len(ln) - len(ln.lstrip("#"))
+            body.append(f"<h{level}>{_inline(ln[level:].strip(), base_dir)}</h{level}>")
+        elif ln.startswith("|"):
+            flush()
+            rows = []
+            while i < len(lines) and lines[i].startswith("|"):
+                if not re.fullmatch(r"\|[-:|]+\|", lines[i].strip()):  # not the header separator
+                    rows.append([c.strip() for c in lines[i].strip()[1:-1].split(" | ")])
+                i += 1
+            head, data = rows[0], rows[1:]
+            body.append("<table><thead><tr>" + "".join(f"<th>{_inline(c, base_dir)}</th>" for c in head)
+                        + "</tr></thead><tbody>" + "".join(
+                            "<tr>" + "".join(f"<td>{_inline(c, base_dir)}</td>" for c in r) + "</tr>" for r in data)
+                        + "</tbody></table>")
+            continue
+        elif ln.startswith("- "):
+            flush()
+            items = []
+            while i < len(lines) and lines[i].startswith("- "):
+                items.append(f"<li>{_inline(lines[i][2:], base_dir)}</li>")
+                i += 1
+            body.append("<ul>" + "".join(items) + "</ul>")
+            continue
+        elif not ln.strip():
+            flush()
+        else:
+            para.append(ln)
+        i += 1
+    flush()
+    title = next((x.lstrip("# ").strip() for x in lines if x.startswith("# ")), "hbmodel report")
+    style = ("body{font-family:sans-serif;max-width:60em;margin:2em auto;line-height:1.4}"
+             "table{border-collapse:collapse;margin:0.5em 0}th,td{border:1px solid #bbb;padding:2px 8px}"
+             "th{background:#eee}td{font-variant-numeric:tabular-nums}")
+    return (f"<!DOCTYPE html>\n<html><head><meta charset=\"utf-8\"><title>{_html.escape(title)}</title>"
+            f"<style>{style}</style></head><body>\n" + "\n".join(body) + "\n</body></html>\n")
 
 
 # ----------------------------------------------------------------------------------- fit report
@@ -240,7 +327,7 @@ def fit_report(est, res: dict, *, title: str, inputs: dict, plots=()) -> str:
     if zp:
         lines += ["## Zero-point sensitivity", "",
                   f"Mass loss at the MAP with the zero points free {zp['mass_loss_map_free']:.4f} Msun, fixed at "
-                  f"zero {zp['mass_loss_map_fixed']:.4f} Msun (shift {zp['shift']:+.4f} Msun).", ""]
+                  f"zero {zp['mass_loss_map_fixed']:.4f} Msun (shift {_at(zp['shift'], 4)} Msun).", ""]
     lines += ["## Inputs", ""] + markdown_table(["option", "value"],
                                                  [[k, _cell(v)] for k, v in inputs.items() if v is not None])
     lines += _figure_lines(list(plots))

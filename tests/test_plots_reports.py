@@ -340,7 +340,7 @@ def test_fit_text_summary_rounds_and_prints_integer_n_eff(tmp_path, capsys, fitt
     out = capsys.readouterr().out
     row = next(ln for ln in out.splitlines() if ln.strip().startswith("mass_loss "))
     assert re.fullmatch(r"\s+mass_loss\s+\d\.\d+ \+\d\.\d+/−\d\.\d+ Msun", row), row
-    assert re.search(r"n_eff (\d+|—)\)", out)
+    assert re.search(r"Laplace approximation at the MAP \(\d+ draws\)", out), out   # an integer, no chain talk
 
 
 def test_distance_report_splits_errors_and_names_every_input(tmp_path, capsys):
@@ -407,3 +407,20 @@ def test_batch_summary_panels_carry_units():
     labels = [ax.get_ylabel() for ax in fig.axes]
     assert labels == [axis_label("distance_modulus"), axis_label("ebv"), axis_label("distance_kpc")]
     assert all(lb.endswith(("[mag]", "[kpc]")) for lb in labels)
+
+
+def test_html_report_is_one_offline_file(tmp_path):
+    from hbmodel.plot_style import save_figure
+    from hbmodel.reports import markdown_to_html, write_report
+    fig, ax = new_figure()
+    ax.plot([0, 1], [0, 1])
+    save_figure(fig, tmp_path / "f.png", pdf=False)
+    md = "\n".join(["# T", "", "**No warnings.**", ""] + markdown_table(["a", "b"], [["x", "1 <2"]])
+                   + ["", "- item `code`", "", "![f.png](f.png) ([PDF](f.pdf))"])
+    write_report(tmp_path / "report.md", None, text=md)
+    html = (tmp_path / "report.html").read_text()
+    assert html == markdown_to_html(md, tmp_path)
+    assert "<table><thead><tr><th>a</th><th>b</th></tr></thead><tbody><tr><td>x</td><td>1 &lt;2</td></tr>" in html
+    assert "---" not in html and "<li>item <code>code</code></li>" in html and "<b>No warnings.</b>" in html
+    # the figure is embedded, not linked: the page needs no other file
+    assert 'src="data:image/png;base64,' in html and 'src="f.png"' not in html

@@ -125,7 +125,10 @@ def run(args):
             print(f"  {k:18s} {format_interval(s[k])} {unit_of(k)}".rstrip())
     c = s["convergence"]
     n_eff = "—" if c["n_eff"] is None else f"{int(round(c['n_eff']))}"
-    print(f"  converged: {'yes' if c['converged'] else 'no'}  (steps {c['n_steps']}, n_eff {n_eff})")
+    if est.sampler == "laplace":
+        print(f"  Laplace approximation at the MAP ({n_eff} draws)")
+    else:
+        print(f"  converged: {'yes' if c['converged'] else 'no'}  (steps {c['n_steps']}, n_eff {n_eff})")
     gof = s.get("goodness_of_fit")
     if gof:
         print(f"  goodness of fit: posterior-predictive p = {gof['p_value']:.2f}")
