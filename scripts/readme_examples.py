@@ -233,7 +233,8 @@ def _plover3_mass_loss(workdir):
 FIGURES = {"hbtype/hb_type_grid.png": "predict_hb_type.png", "clumpgrid/clump_grid_I.png": "predict_clump_grid_I.png",
            "sandpiper9_cmd.png": "mock_cmd.png", "sandpiper9_fit/hess.png": "fit_hess.png",
            "sandpiper9_fit/cmd.png": "fit_cmd.png", "sandpiper9_fit/corner.png": "fit_corner.png",
-           "sandpiper9_fit/ppc.png": "fit_ppc.png", "tern_south_dist/lf.png": "distance_lf.png"}
+           "sandpiper9_fit/ppc.png": "fit_ppc.png", "sandpiper9_fit/hb_mass.png": "fit_hb_mass.png",
+           "tern_south_dist/lf.png": "distance_lf.png"}
 
 def _plover3_truth(_workdir):
     sys.path.insert(0, str(ROOT))
