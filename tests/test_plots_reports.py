@@ -361,7 +361,11 @@ def test_distance_report_splits_errors_and_names_every_input(tmp_path, capsys):
     for needle in ("0 ± 0.1 (--feh-sd)", "4 ± 1 (--age-sd)", "| Reimers η (mass loss of the clump model) | 0.3 |",
                    "F99, R_V = 3.1", "from the clump colour J-Ks", f"| clump calibration σ [mag] | {CALIBRATION_SD_MAG:g} |"):
         assert needle in text, needle
-    assert (out / "lf.png").exists() and (out / "lf.pdf").exists()
+    assert (out / "lf.png").exists() and (out / "lf.pdf").exists() and (out / "report.html").exists()
+    eb = res["error_budget_mag"]
+    assert eb["statistical"] == pytest.approx(np.hypot(eb["clump_peak"], eb["reddening"]))
+    assert eb["systematic"] == pytest.approx(np.hypot(eb["calibration"], eb["population"]))
+    assert f"± {eb['statistical']:.3f} (stat) ± {eb['systematic']:.3f} (sys) mag" in text
     # budget: the population term comes from --feh-sd/--age-sd and is systematic, next to the calibration
     sys_row = next(ln for ln in text.splitlines() if ln.startswith("| **systematic total**"))
     pop_row = next(ln for ln in text.splitlines() if ln.startswith("| population"))

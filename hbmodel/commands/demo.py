@@ -93,7 +93,7 @@ def run(args):
     from ..io import atomic_write_json, prepare_out_dir
     from ..plot_style import save_figure
     from ..plots import plot_clump_lf, plot_cmd
-    from ..reports import distance_report, format_interval, write_report
+    from ..reports import distance_error_budget, distance_report, format_interval, write_report
     t0 = time.perf_counter()
     out = prepare_out_dir(args.out, force=args.force)
     scen = scenario()
@@ -126,6 +126,7 @@ def run(args):
                            colour_mags={"J": np.asarray(cat["J"]), "Ks": np.asarray(cat["Ks"])},
                            mag_err=np.asarray(cat["Ks_err"]))
     d = res.to_dict()
+    d["error_budget_mag"] = distance_error_budget(res)
     (out / "corvid_east").mkdir(exist_ok=True)
     atomic_write_json(out / "corvid_east" / "result.json", d, force=True)
     fig, _ = plot_clump_lf(np.asarray(cat["Ks"]), res.lf, band="Ks",

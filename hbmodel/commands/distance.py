@@ -127,7 +127,9 @@ def run(args):
     res = measure_distance(mag, pop, args.band, colour_mags=cm, colour=colour, ebv=ebv, ebv_sd=args.ebv_sd,
                            rv=args.rv, law=args.extinction_law, population_sd_mag=population_sd(args, args.band),
                            mag_range=region, mag_err=err)
+    from ..reports import distance_error_budget
     d = res.to_dict()
+    d["error_budget_mag"] = distance_error_budget(res)  # 1-sigma terms: statistical and systematic apart
     if out is not None:
         from ..plot_style import save_figure
         from ..plots import plot_clump_lf
