@@ -64,7 +64,7 @@ def _fit_cluster(key, s, out, quick, force, lines):
         est.fit(masses=_catalog(s["masses"]))
     else:
         est.fit(cat)
-    from ..reports import save_fit_products
+    from ..reports import format_interval, save_fit_products
     d = out / key
     d.mkdir(exist_ok=True)
     known = {"mass_loss": truth["mass_loss"], "mass_loss_sd": truth["hb_mass_sd"],
@@ -78,13 +78,11 @@ def _fit_cluster(key, s, out, quick, force, lines):
     atomic_write_json(d / "truth.json", truth, force=force)
     ml = summ["mass_loss"]
     ok = ml["lo"] - 0.01 <= truth["mass_loss"] <= ml["hi"] + 0.01
-    lines.append(f"  {s['title'].split(':')[0]:<12} mass loss {ml['median']:.3f} "
-                 f"(+{ml['hi'] - ml['median']:.3f}/-{ml['median'] - ml['lo']:.3f}) Msun   "
+    lines.append(f"  {s['title'].split(':')[0]:<12} mass loss {format_interval(ml)} Msun   "
                  f"truth {truth['mass_loss']:.3f}   {'recovered' if ok else 'MISSED'}")
     sd = summ.get("mass_loss_sd")
     if sd:
-        lines.append(f"  {'':<12} spread    {sd['median']:.3f} (+{sd['hi'] - sd['median']:.3f}/-"
-                     f"{sd['median'] - sd['lo']:.3f}) Msun   truth {truth['hb_mass_sd']:.3f}")
+        lines.append(f"  {'':<12} spread    {format_interval(sd)} Msun   truth {truth['hb_mass_sd']:.3f}")
     return ok
 
 
@@ -93,7 +91,7 @@ def run(args):
     from ..io import atomic_write_json, prepare_out_dir
     from ..plot_style import save_figure
     from ..plots import plot_clump_lf, plot_cmd
-    from ..reports import distance_error_budget, distance_report, format_interval, write_report
+    from ..reports import distance_error_budget, distance_report, format_interval, format_value, write_report
     t0 = time.perf_counter()
     out = prepare_out_dir(args.out, force=args.force)
     scen = scenario()
@@ -136,9 +134,9 @@ def run(args):
     ok = dm["lo"] - 0.01 <= s["distance_modulus"] <= dm["hi"] + 0.01
     all_ok &= ok
     lines += ["", "distance (red clump in Ks, reddening from J-Ks):",
-              f"  Corvid-East  DM {dm['median']:.3f} (+{dm['hi'] - dm['median']:.3f}/-{dm['median'] - dm['lo']:.3f})"
-              f"   truth {s['distance_modulus']:.3f}   {'recovered' if ok else 'MISSED'};"
-              f"  E(B-V) {res.ebv:.3f} ± {res.ebv_err:.3f} (truth {s['ebv']:.2f})"]
+              f"  Corvid-East  DM {format_interval(dm)} mag   truth {s['distance_modulus']:.3f}   "
+              f"{'recovered' if ok else 'MISSED'};  E(B-V) {format_value(res.ebv, res.ebv_err)} mag "
+              f"(truth {s['ebv']:.2f})"]
     write_report(out / "corvid_east" / "report.md", None, force=True, text=distance_report(
         res, title="Corvid-East red-clump distance (demo)", plots=["lf.png"],
         inputs={"catalog": s["catalog"], "band": "Ks", "reddening": "from the clump colour J − Ks",
