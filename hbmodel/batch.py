@@ -734,10 +734,25 @@ def _summary_table(records: list[dict]):
 
 
 def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
-    """One panel per numeric result (interval bars where given) against the jobs."""
+    """Write :func:`summary_figure` to ``path`` (PNG), atomically."""
+    fig = summary_figure(summary, max_panels)
+    with _atomic_path(path) as tmp:
+        fig.savefig(tmp, format="png", dpi=110)
+
+
+def summary_figure(summary, max_panels: int = 12):
+    """One panel per numeric result (interval bars where given) against the jobs; y labels with units."""
+    import matplotlib
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
+    from .plot_style import _style
+    from .quantities import axis_label
+    with matplotlib.rc_context(_style()):
+        return _summary_figure(summary, max_panels, Figure, FigureCanvasAgg, axis_label)
+
+
+def _summary_figure(summary, max_panels, Figure, FigureCanvasAgg, axis_label):
     cols = summary.colnames
     keys = [c for c in cols[3:]
             if summary[c].dtype.kind in "if"
@@ -759,7 +774,7 @@ def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
             ax.errorbar(x, y, yerr=yerr, fmt="o", ms=4, capsize=2)
         else:
             ax.plot(x, y, "o", ms=4)
-        ax.set_ylabel(key, fontsize=8)
+        ax.set_ylabel(axis_label(key), fontsize=8)
         ax.grid(alpha=0.3)
     if not keys:
         axes[0].text(0.5, 0.5, "no numeric results", ha="center", va="center",
@@ -775,8 +790,7 @@ def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
     n_fail = int((~ok).sum())
     fig.suptitle(f"hbmodel batch: {n} jobs, {n_fail} failed (grey)", fontsize=9)
     fig.tight_layout()
-    with _atomic_path(path) as tmp:
-        fig.savefig(tmp, format="png", dpi=110)
+    return fig
 
 
 # --------------------------------------------------------------------------- chunks

@@ -140,7 +140,8 @@ def measure_distance(mag, pop: Population, band: str, *, colour_mags=None, colou
     rng = np.random.default_rng(0) if rng is None else rng
     lf = fit_clump_lf(mag, mag_range=mag_range)
     peak_err = float(lf.peak_mag_err)
-    if not np.isfinite(peak_err) or peak_err <= 0:  # singular Hessian: fall back on the bootstrap
+    if not lf.converged or not np.isfinite(peak_err) or peak_err <= 0:
+        # unclean fit or singular Hessian: the curvature error is not trustworthy, use the bootstrap
         lf = fit_clump_lf(mag, mag_range=mag_range, n_boot=60, rng=np.random.default_rng(rng.integers(2**32)))
         peak_err = float(lf.peak_mag_err_boot)
     smear = 0.05

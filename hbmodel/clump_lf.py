@@ -581,36 +581,10 @@ def _fit_background_only(m: np.ndarray, lo: float, hi: float, background: str, f
     return float(r.fun)
 
 
-def plot_clump_lf(mag, result: ClumpLFResult, ax=None, *, bin_mag: float | None = None):
+def plot_clump_lf(mag, result: ClumpLFResult, ax=None, *, bin_mag: float | None = None, band: str | None = None,
+                  title: str | None = None):
     """Histogram of the stars in ``result.mag_range`` with the fitted total density and each component
-    overlaid, scaled to counts per bin.  Returns ``(figure, axes)``; never opens a window (Agg-safe)."""
-    m = np.asarray(mag, dtype=float).ravel()
-    if not np.all(np.isfinite(m)):
-        raise ValueError("mag contains NaN or infinite magnitudes; remove them before plotting")
-    lo, hi = result.mag_range
-    m = m[(m >= lo) & (m <= hi)]
-    if bin_mag is None:
-        bin_mag = max((hi - lo) / 120.0, min(0.05, (hi - lo) / max(math.sqrt(max(m.size, 1)), 10.0)))
-    if not bin_mag > 0:
-        raise ValueError(f"bin_mag must be positive, got {bin_mag!r}")
-    if ax is None:
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-        fig = Figure(figsize=(6.0, 4.0))
-        FigureCanvasAgg(fig)
-        ax = fig.add_subplot(1, 1, 1)
-    else:
-        fig = ax.figure
-    nb = max(int(round((hi - lo) / bin_mag)), 1)
-    ax.hist(m, bins=nb, range=(lo, hi), histtype="step", color="0.3", label=f"stars (N={m.size})")
-    scale = m.size * (hi - lo) / nb
-    grid = np.linspace(lo, hi, 600)
-    ax.plot(grid, scale * result.density(grid), color="k", lw=1.6, label="total model")
-    styles = {"clump": "C3", "rgb": "C0", "bump": "C2", "agb": "C1"}
-    for name, dens in result.component_densities(grid).items():
-        ax.plot(grid, scale * dens, ls="--", color=styles.get(name, None), label=name)
-    ax.axvline(result.peak_mag, color="C3", lw=0.8, alpha=0.6)
-    ax.set_xlabel("magnitude")
-    ax.set_ylabel(f"stars per {bin_mag:.3g} mag")
-    ax.legend(fontsize="small")
-    return fig, ax
+    overlaid, scaled to counts per bin (:func:`hbmodel.plots.plot_clump_lf`).  Returns ``(figure, axes)``;
+    never opens a window (Agg-safe)."""
+    from .plots import plot_clump_lf as _plot
+    return _plot(mag, result, ax, bin_mag=bin_mag, band=band, title=title)

@@ -925,74 +925,21 @@ class MassLossFit:
         ce, me, obs, model = self.hess(nbins)
         return {"poisson_deviance": hess_poisson_deviance(obs, model), "n_bins": int(np.sum(model > 0.5) )}
 
-    # ------------------------------------------------------------------ plots
-    def plot_hess(self, fig=None):
-        import matplotlib
-        matplotlib.use("Agg", force=False)
-        import matplotlib.pyplot as plt
-        ce, me, obs, model = self.hess()
-        fig = fig or plt.figure(figsize=(11, 4))
-        res = (obs - model) / np.sqrt(np.maximum(model, 0.5))
-        for i, (img, title) in enumerate(((obs, "observed"), (model, "model (MAP)"), (res, "(obs-model)/sqrt(model)"))):
-            ax = fig.add_subplot(1, 3, i + 1)
-            kw = dict(cmap="RdBu_r", vmin=-4, vmax=4) if i == 2 else dict(cmap="viridis", vmin=0,
-                                                                          vmax=max(obs.max(), 1))
-            sgn = self._colour_sign  # a reflected colour axis shows the image mirrored
-            im = ax.imshow(img if sgn > 0 else img[:, ::-1], origin="upper", aspect="auto",
-                           extent=((ce[0], ce[-1]) if sgn > 0 else (-ce[-1], -ce[0])) + (me[-1], me[0]), **kw)
-            ax.set_title(title)
-            ax.set_xlabel("-".join(self.colour_))
-            if i == 0:
-                ax.set_ylabel(self.bands[0])
-            fig.colorbar(im, ax=ax)
-        fig.tight_layout()
-        return fig
+    # ------------------------------------------------------------------ plots (see hbmodel.plots)
+    def plot_hess(self):
+        """Observed, model and residual Hess diagrams (:func:`hbmodel.plots.plot_fit_hess`)."""
+        from .plots import plot_fit_hess
+        return plot_fit_hess(self)[0]
 
-    def plot_cmd(self, fig=None):
-        import matplotlib.pyplot as plt
-        ce, me, obs, model = self.hess((80, 80))
-        fig = fig or plt.figure(figsize=(5, 6))
-        ax = fig.add_subplot(1, 1, 1)
-        sgn = self._colour_sign
-        ax.plot(sgn * self.data_["colour"], self.data_["mag"], "k.", ms=2, alpha=0.6, label="catalogue")
-        cc, mc = 0.5 * (ce[1:] + ce[:-1]), 0.5 * (me[1:] + me[:-1])
-        if sgn < 0:  # increasing colours for the contour grid
-            cc, model = -cc[::-1], model[:, ::-1]
-        lv = np.quantile(model[model > 0], [0.5, 0.8, 0.95]) if np.any(model > 0) else [1]
-        ax.contour(cc, mc, model, levels=np.unique(lv), colors="C1")
-        ax.set_ylim(me[-1], me[0])
-        ax.set_xlabel("-".join(self.colour_))
-        ax.set_ylabel(self.bands[0])
-        ax.set_title("catalogue with the MAP model density (contours)")
-        return fig
+    def plot_cmd(self):
+        """The catalogue over the MAP model density (:func:`hbmodel.plots.plot_fit_cmd`)."""
+        from .plots import plot_fit_cmd
+        return plot_fit_cmd(self)[0]
 
-    def plot_corner(self, keys=None, fig=None):
-        """A simple corner plot (1-D histograms on the diagonal, 2-D scatter below)."""
-        import matplotlib.pyplot as plt
-        self._fitted()
-        post = self.posterior_
-        keys = keys or [k for k in ("mass_loss", "mass_loss_sd", "helium_fraction", "delta_y", "age",
-                                    "distance_modulus", "ebv", "field_fraction") if k in post and np.std(post[k]) > 0]
-        d = len(keys)
-        fig = fig or plt.figure(figsize=(2.0 * d + 1, 2.0 * d + 1))
-        for i, ki in enumerate(keys):
-            for j, kj in enumerate(keys[:i + 1]):
-                ax = fig.add_subplot(d, d, i * d + j + 1)
-                if i == j:
-                    ax.hist(post[ki], bins=40, color="k", histtype="step")
-                    ax.set_yticks([])
-                else:
-                    ax.plot(post[kj], post[ki], "k.", ms=1, alpha=0.2)
-                if i == d - 1:
-                    ax.set_xlabel(kj, fontsize=8)
-                else:
-                    ax.set_xticklabels([])
-                if j == 0 and i > 0:
-                    ax.set_ylabel(ki, fontsize=8)
-                elif j > 0:
-                    ax.set_yticklabels([])
-                ax.tick_params(labelsize=6)
-        return fig
+    def plot_corner(self, keys=None, truth=None):
+        """Corner plot with medians, 16/84 % lines and ``truth`` markers (:func:`hbmodel.plots.plot_corner`)."""
+        from .plots import plot_corner
+        return plot_corner(self, keys, truth=truth)[0]
 
     def hb_mass_distribution(self, grid=None, n_draws=200):
         """Posterior median and 16-84% band of the HB-mass density (normal + helium-enriched stars)."""
@@ -1014,14 +961,7 @@ class MassLossFit:
                                                               sd[idx, None])
         return grid, np.percentile(dens, [16, 50, 84], axis=0)
 
-    def plot_hb_mass(self, fig=None):
-        import matplotlib.pyplot as plt
-        grid, (lo, med, hi) = self.hb_mass_distribution()
-        fig = fig or plt.figure(figsize=(5, 3.5))
-        ax = fig.add_subplot(1, 1, 1)
-        ax.fill_between(grid, lo, hi, color="C0", alpha=0.3, label="16-84%")
-        ax.plot(grid, med, "C0", label="posterior median")
-        ax.set_xlabel("HB mass [Msun]")
-        ax.set_ylabel("density")
-        ax.legend()
-        return fig
+    def plot_hb_mass(self, truth=None):
+        """Posterior HB-mass distribution (:func:`hbmodel.plots.plot_hb_mass`)."""
+        from .plots import plot_hb_mass
+        return plot_hb_mass(self, truth=truth)[0]

@@ -23,7 +23,8 @@ example:
 
 
 def add_arguments(p):
-    p.add_argument("--out", default="hbmodel_demo_output", help="report folder (default hbmodel_demo_output)")
+    p.add_argument("--out", default="hbmodel_demo_output",
+                   help="report folder (default hbmodel_demo_output, in the current directory)")
     p.add_argument("--force", action="store_true", help="write into an existing report folder")
     p.add_argument("--quick", action="store_true", help="shorter chains (for tests)")
 
@@ -63,31 +64,34 @@ def _fit_cluster(key, s, out, quick, force, lines):
         est.fit(masses=_catalog(s["masses"]))
     else:
         est.fit(cat)
-    from ..reports import save_fit_products
+    from ..reports import format_interval, save_fit_products
     d = out / key
     d.mkdir(exist_ok=True)
+    known = {"mass_loss": truth["mass_loss"], "mass_loss_sd": truth["hb_mass_sd"],
+             "hb_mass_mean": truth["hb_mass_mean"]}
+    if "masses" not in s:  # the photometric fit samples the distance and reddening too
+        known.update(distance_modulus=s["distance_modulus"], ebv=s["ebv"])
     summ = save_fit_products(est, d, title=f"{s['title'].split(':')[0]} mass-loss fit (demo)", force=True,
                              inputs={"catalog": s.get("masses") or s["catalog"], "[Fe/H]": s["feh"],
-                                     "[alpha/Fe]": s["alpha_fe"], "age [Gyr]": s["age"], "model": est.model})
+                                     "[alpha/Fe]": s["alpha_fe"], "age [Gyr]": s["age"], "model": est.model},
+                             truth=known)
     atomic_write_json(d / "truth.json", truth, force=force)
     ml = summ["mass_loss"]
     ok = ml["lo"] - 0.01 <= truth["mass_loss"] <= ml["hi"] + 0.01
-    lines.append(f"  {s['title'].split(':')[0]:<12} mass loss {ml['median']:.3f} "
-                 f"(+{ml['hi'] - ml['median']:.3f}/-{ml['median'] - ml['lo']:.3f}) Msun   "
+    lines.append(f"  {s['title'].split(':')[0]:<12} mass loss {format_interval(ml)} Msun   "
                  f"truth {truth['mass_loss']:.3f}   {'recovered' if ok else 'MISSED'}")
     sd = summ.get("mass_loss_sd")
     if sd:
-        lines.append(f"  {'':<12} spread    {sd['median']:.3f} (+{sd['hi'] - sd['median']:.3f}/-"
-                     f"{sd['median'] - sd['lo']:.3f}) Msun   truth {truth['hb_mass_sd']:.3f}")
+        lines.append(f"  {'':<12} spread    {format_interval(sd)} Msun   truth {truth['hb_mass_sd']:.3f}")
     return ok
 
 
 def run(args):
-    from ..clump_distance import measure_distance
-    from ..clump_lf import plot_clump_lf
-    from ..io import atomic_savefig, atomic_write_json, prepare_out_dir
-    from ..plots import plot_cmd
-    from ..reports import write_report
+    from ..clump_distance import CALIBRATION_SD_MAG, measure_distance
+    from ..io import atomic_write_json, prepare_out_dir
+    from ..plot_style import save_figure
+    from ..plots import plot_clump_lf, plot_cmd
+    from ..reports import distance_error_budget, distance_report, format_interval, format_value, write_report
     from ..resources import Estimate, check_budget
     # measured (--quick): 0.55 GB peak resident, a 1.1 MB report folder; rounded up for the full chains
     check_budget(Estimate("the demo", memory_bytes=2**30, disk_bytes=20 * 2**20, disk_path=args.out),
@@ -107,9 +111,9 @@ def run(args):
                      f"HB mass {d['hb_mass_mean']:.3f} Msun, clump M_I "
                      + (f"{d['clump_absmag']['I']:+.2f}" if d.get("clump_absmag") else "—"))
         cat = _catalog(s["catalog"])
-        cat["phase"] = np.full(len(cat), "hb")  # unknown phases: plotted in one colour
+        # observed catalogue: phases unknown, all stars in one colour
         fig, _ = plot_cmd(cat, "V", ("V", "I"), title=s["title"].split(":")[0] + " (observed)")
-        atomic_savefig(fig, out / f"{key}_cmd.png", force=True)
+        save_figure(fig, out / f"{key}_cmd.png", force=True)
     # 2. mass-loss fits
     lines += ["", "fit (mean integrated RGB mass loss, 16-84% interval; Kestrel-7 from its V, I photometry,",
               "     Halcyon-3 from asteroseismic RGB and clump masses):"]
@@ -124,22 +128,27 @@ def run(args):
                            colour_mags={"J": np.asarray(cat["J"]), "Ks": np.asarray(cat["Ks"])},
                            mag_err=np.asarray(cat["Ks_err"]))
     d = res.to_dict()
+    d["error_budget_mag"] = distance_error_budget(res)
     (out / "corvid_east").mkdir(exist_ok=True)
     atomic_write_json(out / "corvid_east" / "result.json", d, force=True)
-    fig, _ = plot_clump_lf(np.asarray(cat["Ks"]), res.lf)
-    atomic_savefig(fig, out / "corvid_east" / "lf.png", force=True)
+    fig, _ = plot_clump_lf(np.asarray(cat["Ks"]), res.lf, band="Ks",
+                           title=f"Corvid-East: $(m-M)_0$ = {format_interval(res.distance_modulus)} mag")
+    save_figure(fig, out / "corvid_east" / "lf.png", force=True)
     dm = res.distance_modulus
     ok = dm["lo"] - 0.01 <= s["distance_modulus"] <= dm["hi"] + 0.01
     all_ok &= ok
     lines += ["", "distance (red clump in Ks, reddening from J-Ks):",
-              f"  Corvid-East  DM {dm['median']:.3f} (+{dm['hi'] - dm['median']:.3f}/-{dm['median'] - dm['lo']:.3f})"
-              f"   truth {s['distance_modulus']:.3f}   {'recovered' if ok else 'MISSED'};"
-              f"  E(B-V) {res.ebv:.3f} ± {res.ebv_err:.3f} (truth {s['ebv']:.2f})"]
-    write_report(out / "corvid_east" / "report.md", "Corvid-East red-clump distance (demo)", force=True,
-                 inputs={"catalog": s["catalog"], "band": "Ks", "colour": "J-Ks", "[Fe/H]": s["feh"],
-                         "ages [Gyr]": f"{s['age_range'][0]}-{s['age_range'][1]} (constant SFR)"},
-                 results={k: v for k, v in d.items() if k != "lf_fit"}, plots=["lf.png"])
-    lines += ["", f"report folder: {out}   ({time.perf_counter() - t0:.0f} s)"]
+              f"  Corvid-East  DM {format_interval(dm)} mag   truth {s['distance_modulus']:.3f}   "
+              f"{'recovered' if ok else 'MISSED'};  E(B-V) {format_value(res.ebv, res.ebv_err)} mag "
+              f"(truth {s['ebv']:.2f})"]
+    write_report(out / "corvid_east" / "report.md", None, force=True, text=distance_report(
+        res, title="Corvid-East red-clump distance (demo)", plots=["lf.png"],
+        inputs={"catalog": s["catalog"], "band": "Ks", "reddening": "from the clump colour J − Ks",
+                "[Fe/H] [dex]": f"{s['feh']:g} ± 0 (--feh-sd 0)",
+                "ages [Gyr]": f"{s['age_range'][0]:g} – {s['age_range'][1]:g}, constant star formation",
+                "Reimers η": f"{s['eta']:g} ± {s['eta_sd']:g}", "extinction law": "F99, R_V = 3.1",
+                "clump calibration σ [mag]": CALIBRATION_SD_MAG}))
+    lines += ["", f"report folder: {out.resolve()}   ({time.perf_counter() - t0:.0f} s)"]
     text = "\n".join(lines)
     from ..io import atomic_write_text
     atomic_write_text(out / "summary.txt", text + "\n", force=True)

@@ -76,9 +76,26 @@ def population_sd(args, band, smear=0.05):
     return float(np.sqrt(np.sum(np.square(terms)))) if terms else 0.0
 
 
+def _report_inputs(args) -> dict:
+    """Every input of a distance run, with its unit, for the report."""
+    from ..clump_distance import CALIBRATION_SD_MAG
+    if args.age_range:
+        age = f"{args.age_range.replace(':', ' – ')}, constant star formation"
+    else:
+        age = f"{args.age:g} ± {args.age_sd:g} (--age-sd)"
+    redd = (f"from the clump colour {args.color}" if args.reddening_from_color
+            else f"E(B − V) = {args.ebv or 0.0:g} ± {args.ebv_sd:g} mag (given)")
+    return {"catalog": args.catalog, "band": args.band, "colour": args.color,
+            "[Fe/H] [dex]": f"{args.feh:g} ± {args.feh_sd:g} (--feh-sd)", "[alpha/Fe] [dex]": args.alpha_fe,
+            "age [Gyr]": age, "Reimers η (mass loss of the clump model)": args.eta, "reddening": redd,
+            "extinction law": f"{args.extinction_law}, R_V = {args.rv:g}",
+            "fit window [mag]": args.region or "automatic (peak ± 1.5 mag)",
+            "clump calibration σ [mag]": CALIBRATION_SD_MAG, "column mapping": args.columns}
+
+
 def run(args):
     from ..clump_distance import measure_distance
-    from ..io import atomic_savefig, atomic_write_json, prepare_out_dir, read_catalog
+    from ..io import atomic_write_json, prepare_out_dir, read_catalog
     from ..photometry import parse_colour, resolve_band
     band = resolve_band(args.band, "--band")
     colour = parse_colour(args.color, "--color") if args.color else None
@@ -109,33 +126,37 @@ def run(args):
     res = measure_distance(mag, pop, band, colour_mags=cm, colour=colour, ebv=ebv, ebv_sd=args.ebv_sd,
                            rv=args.rv, law=args.extinction_law, population_sd_mag=population_sd(args, band),
                            mag_range=region, mag_err=err)
+    from ..reports import distance_error_budget
     d = res.to_dict()
+    d["error_budget_mag"] = distance_error_budget(res)  # 1-sigma terms: statistical and systematic apart
     if out is not None:
-        from ..clump_lf import plot_clump_lf
-        from ..reports import run_record, write_report
+        from ..plot_style import save_figure
+        from ..plots import plot_clump_lf
+        from ..reports import distance_report, format_interval, run_record, write_report
         atomic_write_json(out / "result.json", d, force=args.force)
         atomic_write_json(out / "config.json", run_record("distance", args), force=args.force)
-        fig, ax = plot_clump_lf(mag[np.isfinite(mag)], res.lf)
-        ax.set_title(f"clump LF in {band}: DM = {res.distance_modulus['median']:.3f}")
-        atomic_savefig(fig, out / "lf.png", force=args.force)
-        warn = [] if res.lf.converged else ["the LF fit did not converge cleanly"]
-        write_report(out / "report.md", f"Red-clump distance: {args.catalog}", force=args.force,
-                     inputs={"catalog": args.catalog, "band": band, "[Fe/H]": args.feh,
-                             "age [Gyr]": args.age, "age range": args.age_range, "E(B-V) given": args.ebv,
-                             "reddening from colour": "-".join(colour) if args.reddening_from_color else None},
-                     results={k: v for k, v in d.items() if k != "lf_fit"},
-                     plots=["lf.png"], warnings=warn)
+        fig, _ = plot_clump_lf(mag[np.isfinite(mag)], res.lf, band=args.band,
+                               title=f"$(m-M)_0$ = {format_interval(res.distance_modulus)} mag")
+        save_figure(fig, out / "lf.png", force=args.force)
+        write_report(out / "report.md", None, force=args.force, text=distance_report(
+            res, title=f"Red-clump distance: {args.catalog}", plots=["lf.png"], inputs=_report_inputs(args)))
     if args.json:
         d.pop("lf_fit")
         print(dumps(d))
     else:
         dm = res.distance_modulus
         dk = res.distance_kpc
-        print(f"clump peak {band} = {res.clump_peak_mag:.3f} ± {res.clump_peak_mag_err:.3f} "
+        from ..reports import distance_error_budget, format_value, lf_warning
+        eb = distance_error_budget(res)
+        print(f"clump peak {args.band} = {format_value(res.clump_peak_mag, res.clump_peak_mag_err)} mag "
               f"({res.n_stars} stars in the fit window)")
-        print(f"model clump M_{band} = {res.clump_absmag:+.3f} ± {res.clump_absmag_err:.3f} "
-              f"(population correction {res.population_correction:+.3f} vs the solar-neighbourhood clump)")
-        print(f"E(B-V) = {res.ebv:.3f} ± {res.ebv_err:.3f}, A_{band} = {res.extinction_mag:.3f}")
-        print(f"distance modulus {dm['median']:.3f} (+{dm['hi'] - dm['median']:.3f} / -{dm['median'] - dm['lo']:.3f}); "
-              f"distance {dk['median']:.3f} kpc")
+        print(f"model clump M_{args.band} = {format_value(res.clump_absmag, res.clump_absmag_err)} mag "
+              f"(population correction {res.population_correction:+.3f} mag vs the solar-neighbourhood clump)")
+        print(f"E(B-V) = {format_value(res.ebv, res.ebv_err)} mag, A_{args.band} = {res.extinction_mag:.3f} mag")
+        print(f"distance modulus {format_value(dm['median'], dm['hi'] - dm['median'], dm['median'] - dm['lo'])} "
+              f"mag (stat {eb['statistical']:.3f}, sys {eb['systematic']:.3f} mag); "
+              f"distance {format_value(dk['median'], dk['hi'] - dk['median'], dk['median'] - dk['lo'])} kpc")
+        w = lf_warning(res.lf)
+        if w:
+            print(f"warning: {w}")
     return 0

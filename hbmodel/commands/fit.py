@@ -67,6 +67,8 @@ def run(args):
     from ..io import prepare_out_dir, read_catalog
     from ..photometry import parse_bands
     from ..population import Population
+    from ..quantities import unit_of
+    from ..reports import format_interval
     from ._common import canonical_columns, colour_of, dumps, parse_floats
 
     bands = parse_bands(args.bands, "--bands", n=2)
@@ -126,10 +128,16 @@ def run(args):
     for k in ("mass_loss", "mass_loss_sd", "hb_mass_mean", "eta", "distance_modulus", "ebv", "helium_fraction",
               "delta_y"):
         if k in s and s[k]["median"] is not None:
-            print(f"  {k:18s} {s[k]['median']:.4f}  (+{s[k]['hi'] - s[k]['median']:.4f} / "
-                  f"-{s[k]['median'] - s[k]['lo']:.4f})")
+            print(f"  {k:18s} {format_interval(s[k])} {unit_of(k)}".rstrip())
     c = s["convergence"]
-    print(f"  converged: {c['converged']}  (steps {c['n_steps']}, n_eff {c['n_eff']})")
+    n_eff = "—" if c["n_eff"] is None else f"{int(round(c['n_eff']))}"
+    if est.sampler == "laplace":
+        print(f"  Laplace approximation at the MAP ({n_eff} draws)")
+    else:
+        print(f"  converged: {'yes' if c['converged'] else 'no'}  (steps {c['n_steps']}, n_eff {n_eff})")
+    gof = s.get("goodness_of_fit")
+    if gof:
+        print(f"  goodness of fit: posterior-predictive p = {gof['p_value']:.2f}")
     for w in s.get("warnings", []):
         print(f"  warning: {w}")
     if s.get("model_comparison"):

@@ -64,7 +64,8 @@ def add_arguments(p):
 
 
 def run(args):
-    from ..io import atomic_savefig, read_catalog, write_table
+    from ..io import read_catalog, write_table
+    from ..plot_style import save_figure
     from ..mock import ObservationSpec, make_mock
 
     from ..photometry import parse_bands, resolve_band
@@ -132,10 +133,13 @@ def run(args):
         raise ValueError(f"no star survives {what}: the mock would be empty (nothing written)")
     write_table(table, args.out, force=args.force)
     if args.plot:
-        from ..plots import plot_cmd
-        colour = colour or (bands[0], bands[0])
-        fig, _ = plot_cmd(table, bands[0], colour, title=f"mock: [Fe/H]={args.feh:+.2f}, {args.age:g} Gyr")
-        atomic_savefig(fig, args.plot, force=args.force)
+        from ..plots import plot_cmd, plot_luminosity_function
+        title = f"mock: [Fe/H] = {args.feh:+.2f}, {args.age:g} Gyr"
+        if len(bands) > 1:  # a CMD; one band has no colour: its luminosity function instead
+            fig, _ = plot_cmd(table, bands[0], colour or (bands[0], bands[1]), title=title)
+        else:
+            fig, _ = plot_luminosity_function(table, bands[0], title=title)
+        save_figure(fig, args.plot, force=args.force, pdf=False)
     counts = {ph: int(np.sum(table["phase"] == ph)) for ph in ("rgb", "hb", "agb", "field")}
     print(f"wrote {len(table)} stars to {args.out} "
           + ", ".join(f"{k}={v}" for k, v in counts.items() if v))

@@ -61,7 +61,8 @@ def _fmt(v, spec=".3f"):
 def _grid(args):
     from ..grids import clump_grid, grid_estimate, hb_type_grid, parse_range, range_count
     from ..photometry import parse_bands
-    from ..io import atomic_savefig, prepare_out_dir, write_table
+    from ..io import prepare_out_dir, write_table
+    from ..plot_style import save_figure
     from ..plots import plot_clump_grid, plot_hb_type_grid
     from ..resources import check_budget
 
@@ -90,7 +91,7 @@ def _grid(args):
                          eta_sd=args.eta_sd, helium=args.helium, law=args.law)
         write_table(t, out / "hb_type_grid.ecsv", force=args.force)
         fig, _ = plot_hb_type_grid(t)
-        atomic_savefig(fig, out / "hb_type_grid.png", force=args.force)
+        save_figure(fig, out / "hb_type_grid.png", force=args.force)
         print(f"wrote {out / 'hb_type_grid.ecsv'} and {out / 'hb_type_grid.png'} ({len(t)} models)")
         return 0
     spec = dict(item.split("=", 1) for item in args.clump_grid.split(",feh=", 1)[0:1])
@@ -108,8 +109,8 @@ def _grid(args):
                    law=args.law)
     write_table(t, out / "clump_grid.ecsv", force=args.force)
     for b in bands:
-        fig, _ = plot_clump_grid(t, b)
-        atomic_savefig(fig, out / f"clump_grid_{b}.png", force=args.force)
+        fig, _ = plot_clump_grid(t, b, eta=eta)
+        save_figure(fig, out / f"clump_grid_{b}.png", force=args.force)
     print(f"wrote {out / 'clump_grid.ecsv'} and {len(bands)} plots ({len(t)} models)")
     return 0
 
