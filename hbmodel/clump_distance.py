@@ -116,6 +116,28 @@ def _pct(x):
     return {"median": float(med), "lo": float(lo), "hi": float(hi)}
 
 
+#: Half-width (mag) of the RGB-bump offsets the clump-LF fit may use around the population model's
+#: own bump offset (own choice: ~3x the bump-offset scatter of the calibration, tables/targets/bump.ecsv),
+#: and the smallest offset allowed (a bump closer to the clump than ~2 clump widths is not separable).
+BUMP_OFFSET_HALF_WIDTH_MAG = 0.25
+BUMP_OFFSET_MIN_MAG = 0.15
+
+
+def model_bump_offset_range(pop: Population, band: str):
+    """(lo, hi) offsets (mag) of the RGB bump below the clump that the LF fit may use: the population
+    model's bump-minus-clump magnitude +- :data:`BUMP_OFFSET_HALF_WIDTH_MAG` (``None`` -- the table's
+    0.5-1.0 mag -- when the model has no bump or clump in this band, or puts its bump brighter than
+    the clump)."""
+    p = pop.predict(bands=(band,))
+    bump, clump = p.get("bump_absmag"), p.get("clump_absmag")
+    if not bump or not clump or bump.get(band) is None or clump.get(band) is None:
+        return None
+    d = float(bump[band]) - float(clump[band])
+    if not np.isfinite(d) or d <= BUMP_OFFSET_MIN_MAG:
+        return None
+    return (max(d - BUMP_OFFSET_HALF_WIDTH_MAG, BUMP_OFFSET_MIN_MAG), d + BUMP_OFFSET_HALF_WIDTH_MAG)
+
+
 def measure_distance(mag, pop: Population, band: str, *, colour_mags=None, colour: tuple | None = None,
                      ebv: float | None = 0.0, ebv_sd: float = 0.0, rv: float = 3.1, law: str = "F99",
                      population_sd_mag: float = 0.0, mag_range=None, rng=None, mag_err=None) -> DistanceResult:
@@ -138,11 +160,19 @@ def measure_distance(mag, pop: Population, band: str, *, colour_mags=None, colou
     if mag.size < 50:
         raise ValueError(f"too few stars for a clump fit ({mag.size}; need at least 50)")
     rng = np.random.default_rng(0) if rng is None else rng
-    lf = fit_clump_lf(mag, mag_range=mag_range)
+    bump_range = model_bump_offset_range(pop, band)
+    lf = fit_clump_lf(mag, mag_range=mag_range, bump_offset_range=bump_range)
+    if not lf.converged and lf.params.get("bump_ratio", 1.0) <= 1e-3:
+        # no RGB bump in the data (e.g. smeared by an age spread): the same fit without that component
+        no_bump = fit_clump_lf(mag, mag_range=mag_range, components=("clump", "rgb"))
+        if no_bump.converged:
+            lf, bump_range = no_bump, False
     peak_err = float(lf.peak_mag_err)
     if not lf.converged or not np.isfinite(peak_err) or peak_err <= 0:
         # unclean fit or singular Hessian: the curvature error is not trustworthy, use the bootstrap
-        lf = fit_clump_lf(mag, mag_range=mag_range, n_boot=60, rng=np.random.default_rng(rng.integers(2**32)))
+        lf = fit_clump_lf(mag, mag_range=mag_range, n_boot=60, rng=np.random.default_rng(rng.integers(2**32)),
+                          bump_offset_range=bump_range or None,
+                          components=("clump", "rgb") if bump_range is False else ("clump", "rgb", "bump"))
         peak_err = float(lf.peak_mag_err_boot)
     smear = 0.05
     if mag_err is not None:

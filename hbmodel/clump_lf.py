@@ -217,8 +217,10 @@ class _Model:
         return float(-np.sum(np.log(dens))), grad
 
 
-def _build_model(lo: float, hi: float, comps: tuple[str, ...], background: str) -> _Model:
+def _build_model(lo: float, hi: float, comps: tuple[str, ...], background: str, bump_range=None) -> _Model:
     pr = _priors()
+    if bump_range is not None:
+        pr["bump_offset_min_mag"], pr["bump_offset_max_mag"] = (float(x) for x in bump_range)
     names, low, up = ["peak_mag", "sigma_mag"], [lo, pr["sigma_min_mag"]], [hi, pr["sigma_max_mag"]]
     has_bg = "rgb" in comps
     if has_bg:
@@ -269,6 +271,9 @@ def _start_points(model: _Model, m: np.ndarray, peak: float, n_keep: int) -> lis
     base["background_slope"] = float(np.clip(12.0 * (np.mean(m) - 0.5 * (model.lo + model.hi)) / span ** 2,
                                              -2.0, 2.0))
     base["quad_a1"] = base["background_slope"]
+    if model.has_bump:  # start the bump in the middle of its allowed offsets
+        k = model.names.index("bump_offset")
+        base["bump_offset"] = float(0.5 * (model.lower[k] + model.upper[k]))
     cands = []
     for dmc in (-0.1, 0.0, 0.1):
         for s in (0.06, 0.12, 0.25):
@@ -409,7 +414,7 @@ class ClumpLFResult:
 # public API
 # --------------------------------------------------------------------------------------------------
 def fit_clump_lf(mag, *, mag_range=None, components=("clump", "rgb", "bump"), n_boot: int = 0, rng=None,
-                 peak_guess=None, background: str = "exponential") -> ClumpLFResult:
+                 peak_guess=None, background: str = "exponential", bump_offset_range=None) -> ClumpLFResult:
     """Fit the red-clump luminosity function of a catalogue by unbinned maximum likelihood.
 
     Parameters
@@ -423,6 +428,9 @@ def fit_clump_lf(mag, *, mag_range=None, components=("clump", "rgb", "bump"), n_
     peak_guess : starting clump magnitude; default from a trend-subtracted smoothed histogram.
     background : ``"exponential"`` (Nataf et al. 2013, ApJ 769, 88) or ``"quadratic"``
         (Stanek & Garnavich 1998, ApJ 503, L131).
+    bump_offset_range : (lo, hi) bounds of the RGB bump's offset below the clump (mag), replacing the
+        table's 0.5-1.0 mag: e.g. the population model's own bump offset +- a margin
+        (:func:`hbmodel.clump_distance.measure_distance` does so).
 
     The method and its validity range are described in the module docstring.  Raises ``ValueError``
     for NaNs, too few stars in the window or when no significant clump is found.
@@ -431,11 +439,16 @@ def fit_clump_lf(mag, *, mag_range=None, components=("clump", "rgb", "bump"), n_
     # loaded machine), so the fit runs with one BLAS thread (restored on exit).
     with threadpool_limits(limits=1, user_api="blas"):
         return _fit_clump_lf(mag, mag_range=mag_range, components=components, n_boot=n_boot, rng=rng,
-                             peak_guess=peak_guess, background=background)
+                             peak_guess=peak_guess, background=background, bump_offset_range=bump_offset_range)
 
 
-def _fit_clump_lf(mag, *, mag_range, components, n_boot, rng, peak_guess, background) -> ClumpLFResult:
+def _fit_clump_lf(mag, *, mag_range, components, n_boot, rng, peak_guess, background,
+                  bump_offset_range=None) -> ClumpLFResult:
     pr = _priors()
+    if bump_offset_range is not None:
+        lo_b, hi_b = (float(x) for x in bump_offset_range)
+        if not (np.isfinite(lo_b) and np.isfinite(hi_b) and 0.0 < lo_b < hi_b):
+            raise ValueError(f"bump_offset_range must be 0 < lo < hi mag (got {bump_offset_range})")
     try:
         m_all = None if isinstance(mag, str) else np.asarray(mag, dtype=float).ravel()
     except (TypeError, ValueError):
@@ -493,7 +506,7 @@ def _fit_clump_lf(mag, *, mag_range, components, n_boot, rng, peak_guess, backgr
     if not lo < peak_guess < hi:
         raise ValueError(f"peak_guess {peak_guess:g} lies outside the fit window [{lo:g}, {hi:g}]")
 
-    model = _build_model(lo, hi, comps, background)
+    model = _build_model(lo, hi, comps, background, bump_offset_range)
     res = _minimise(model, m, _start_points(model, m, peak_guess, n_keep=3))
     theta = np.clip(res.x, model.lower, model.upper)
     cov, hess_ok = _covariance(model, m, theta)

@@ -380,7 +380,7 @@ def _lf_problems(lf) -> dict:
         lo, hi = float(model.lower[i]), float(model.upper[i])
         comp = _LF_COMPONENT_OF.get(n, n)
         if v is not None and min(v - lo, hi - v) <= 1e-5 * (hi - lo):
-            pinned.setdefault(comp, f"{n} = {v:g} on the bound of its range [{lo:g}, {hi:g}]")
+            pinned.setdefault(comp, f"{n} = {v:.3g} on the bound of its range [{lo:.3g}, {hi:.3g}]")
         elif e is None or not math.isfinite(e) or e <= 0:
             singular.setdefault(comp, f"{n} has no finite curvature error")
     return pinned or singular

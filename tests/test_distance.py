@@ -112,3 +112,25 @@ def test_distance_cli_json(tmp_path):
     for k in ("distance_modulus", "distance_kpc", "clump_peak_mag", "clump_absmag", "population_correction", "ebv"):
         assert k in d
     assert abs(d["distance_modulus"]["median"] - 14.5) < 0.06
+
+
+def test_lf_fit_finds_the_bump_where_the_population_model_puts_it():
+    # Behaviour: the clump-LF fit may place the RGB bump only near the population model's own bump offset.
+    # In a 6 Gyr, [Fe/H] = -0.2 population the model's bump lies ~0.39 mag below the clump in I, outside the
+    # fixed 0.5-1.0 mag range (memory of Nataf et al. 2013's bulge value 0.74 mag): with that range the bump
+    # was pinned on its bound (bump_ratio = 0) and the fit flagged unclean.
+    from hbmodel.clump_distance import model_bump_offset_range
+    from hbmodel.clump_lf import fit_clump_lf
+    pop = Population(-0.2, 6.0, alpha_fe=0.0, mass_loss=MassLoss.from_eta(0.3, 0.03))
+    cat = make_mock(pop, bands=("I", "V"), rng=np.random.default_rng(5), n_hb=1200,
+                    obs=ObservationSpec(distance_modulus=13.1, ebv=0.4, ebv_sd=0.04, depth={"I": 19.5, "V": 20.5},
+                                        window=("I", 11.5, 16.5)))
+    lo, hi = model_bump_offset_range(pop, "I")
+    d_model = 0.5 * (lo + hi) if lo > 0.15 else hi - 0.25
+    res = measure_distance(np.asarray(cat["I"]), pop, "I", colour_mags={b: np.asarray(cat[b]) for b in ("I", "V")},
+                           colour=("V", "I"), ebv=None)
+    assert res.lf.converged
+    assert res.lf.bump_offset == pytest.approx(d_model, abs=0.1)
+    assert 0.05 < res.lf.params["bump_ratio"] < 0.4
+    old = fit_clump_lf(np.asarray(cat["I"]))          # the fixed 0.5-1.0 mag range
+    assert not old.converged or old.params["bump_ratio"] < 0.02
