@@ -271,9 +271,10 @@ def _start_points(model: _Model, m: np.ndarray, peak: float, n_keep: int) -> lis
     base["background_slope"] = float(np.clip(12.0 * (np.mean(m) - 0.5 * (model.lo + model.hi)) / span ** 2,
                                              -2.0, 2.0))
     base["quad_a1"] = base["background_slope"]
-    if model.has_bump:  # start the bump in the middle of its allowed offsets
+    if model.has_bump:  # a bump range that excludes the usual start: begin in its middle
         k = model.names.index("bump_offset")
-        base["bump_offset"] = float(0.5 * (model.lower[k] + model.upper[k]))
+        if not model.lower[k] < base["bump_offset"] < model.upper[k]:
+            base["bump_offset"] = float(0.5 * (model.lower[k] + model.upper[k]))
     cands = []
     for dmc in (-0.1, 0.0, 0.1):
         for s in (0.06, 0.12, 0.25):
