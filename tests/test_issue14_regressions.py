@@ -37,3 +37,27 @@ def test_bug1_other_defining_fields_rebuild_the_population():
     fresh = Population(-1.5, 12.0, helium=0.30)
     assert pop.subpopulations[0].tip_mass_msun == pytest.approx(fresh.subpopulations[0].tip_mass_msun, rel=1e-12)
     assert _median_hb_mass(pop, 5) == pytest.approx(_median_hb_mass(fresh, 5), abs=1e-9)
+
+
+@pytest.mark.parametrize("name, value, valid", [
+    ("helium_fraction", (0.0, 2.0), "[0, 1]"),   # bug 2: accepted before (operator precedence)
+    ("helium_fraction", (-0.5, 0.5), "[0, 1]"),
+    ("field_fraction", (0.0, 1.0), "[0, 1)"),
+    ("delta_y", (0.0, 0.3), "[0, 0.15]"),
+    ("mass_loss", (-0.1, 0.2), "[0, inf)"),
+    ("mass_loss_sd", (-0.1, 0.2), "[0, inf)"),
+])
+def test_bug2_priors_out_of_range_are_rejected_with_the_valid_range(name, value, valid):
+    # Bug 2: `not 0 <= lo and hi <= 1` parsed as `(not 0 <= lo) and hi <= 1`, so
+    # Priors(helium_fraction=(0, 2)) was accepted.  Every bounded range must name itself and its bounds.
+    from hbmodel.fit import Priors
+    with pytest.raises(ValueError) as err:
+        Priors(**{name: value})
+    assert name in str(err.value) and valid in str(err.value)
+
+
+def test_bug2_priors_at_the_edges_are_accepted():
+    # Bug 2, the other side: the widest valid ranges stay valid.
+    from hbmodel.fit import Priors
+    p = Priors(helium_fraction=(0.0, 1.0), delta_y=(0.0, 0.15), field_fraction=(0.0, 0.99), mass_loss=(0.0, 0.4))
+    assert p.helium_fraction == (0.0, 1.0) and p.delta_y == (0.0, 0.15)
