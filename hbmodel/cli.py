@@ -15,7 +15,7 @@ import importlib
 import sys
 
 from . import __version__
-from .commands._common import add_resource_arguments
+from .commands._common import add_resource_arguments, toml_parser
 
 #: Sub-command modules, in the order ``hbmodel --help`` lists them.
 COMMANDS = ("predict", "mock", "fit", "distance", "classify", "batch", "demo")
@@ -33,8 +33,7 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _load_config(path: str) -> dict:
-    import tomllib
-
+    tomllib = toml_parser()
     try:
         with open(path, "rb") as fh:
             cfg = tomllib.load(fh)
