@@ -105,3 +105,37 @@ def test_bug3_no_toml_parser_is_a_one_line_error(tmp_path):
     res = _run_python(code, tmp_path)
     assert res.returncode == 2
     assert "tomli" in res.stderr and len(res.stderr.strip().splitlines()) == 1
+
+
+def test_bug4_plots_leave_the_users_matplotlib_backend_alone(tmp_path):
+    # Bug 4: plot helpers called matplotlib.use("Agg") and so switched the user's interactive backend.
+    # The user picks a non-Agg backend (svg needs no display); every plot helper and a plotting CLI
+    # command run in that process; the backend must be the user's afterwards.
+    code = """
+import sys
+import matplotlib
+matplotlib.use("svg")
+import numpy as np
+from astropy.table import Table
+from hbmodel import plots
+from hbmodel.batch import summary_figure
+from hbmodel.cli import main
+from hbmodel.mock import make_mock
+from hbmodel.plot_style import new_figure
+from hbmodel.population import MassLoss, Population
+pop = Population(-1.6, 12.5, alpha_fe=0.3, mass_loss=MassLoss.from_eta(0.45, 0.03))
+t = make_mock(pop, bands=("V", "I"), rng=np.random.default_rng(7), n_hb=100)
+plots.plot_cmd(t, "V", ("V", "I"))
+plots.plot_luminosity_function(t, "V")
+plots.plot_hb_type_grid(Table({"series": ["age"] * 3, "series_value": [12.0] * 3,
+                               "hb_type": [-1.0, 0.0, 0.8], "feh": [-0.8, -1.5, -2.2]}))
+plots.plot_clump_grid(Table({"feh": [0.0, 0.0], "age_gyr": [2.0, 5.0], "M_I": [-0.4, -0.2]}), "I", eta=0.3)
+new_figure()
+assert main(["mock", "--feh", "0", "--age", "3", "--eta", "0.3", "--n-hb", "60", "--bands", "V,I",
+             "--seed", "1", "--out", "m.ecsv", "--plot", "m.png"]) == 0
+print(matplotlib.get_backend())
+"""
+    res = _run_python(code, tmp_path)
+    assert res.returncode == 0, res.stderr
+    assert res.stdout.strip().splitlines()[-1].lower() == "svg"
+    assert (tmp_path / "m.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
