@@ -139,3 +139,36 @@ print(matplotlib.get_backend())
     assert res.returncode == 0, res.stderr
     assert res.stdout.strip().splitlines()[-1].lower() == "svg"
     assert (tmp_path / "m.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def _clump_grid_table(tmp_path, spec, name):
+    from astropy.table import Table
+    from hbmodel.cli import main
+    out = tmp_path / name
+    assert main(["predict", "--feh", "0", "--age", "4", "--eta", "0.3", "--bands", "I",
+                 "--clump-grid", spec, "--out", str(out)]) == 0
+    return Table.read(out / "clump_grid.ecsv")
+
+
+def test_bug5_clump_grid_accepts_either_order_and_spaces(tmp_path):
+    # Bug 5: --clump-grid accepted only age=...,feh=... in that order with no space after the comma.
+    ref = _clump_grid_table(tmp_path, "age=2:6:4,feh=-0.4,0.2", "ref")
+    assert len(ref) == 4 and sorted(set(np.round(ref["feh"], 6))) == [-0.4, 0.2]
+    for i, spec in enumerate(["feh=-0.4,0.2,age=2:6:4", "age=2:6:4, feh=-0.4, 0.2",
+                              " feh = -0.4 , 0.2 , age = 2 : 6 : 4 "]):
+        t = _clump_grid_table(tmp_path, spec, f"t{i}")
+        assert t.colnames == ref.colnames
+        for c in ref.colnames:
+            assert np.array_equal(np.asarray(t[c]), np.asarray(ref[c])), (spec, c)
+
+
+@pytest.mark.parametrize("spec", ["age=2:6:4", "feh=0", "age=2:6:4,feh=0,age=3", "age=2:6:4,z=0.01",
+                                  "age=2:6:4;feh=0", "", "age=,feh=0"])
+def test_bug5_bad_clump_grid_is_a_one_line_usage_error(spec, tmp_path, capsys):
+    # Bug 5, bad specifications: one line naming --clump-grid, exit 2, no grid written.
+    from hbmodel.cli import main
+    rc = main(["predict", "--feh", "0", "--age", "4", "--eta", "0.3", "--clump-grid", spec,
+               "--out", str(tmp_path / "g")])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert rc == 2 and len(err) == 1 and "--clump-grid" in err[0]
+    assert not (tmp_path / "g" / "clump_grid.ecsv").exists()
