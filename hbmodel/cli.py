@@ -133,12 +133,7 @@ def build_parser() -> tuple[argparse.ArgumentParser, dict]:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     modules = {}
     for name in COMMANDS:
-        try:
-            mod = importlib.import_module(f"hbmodel.commands.{name}")
-        except ModuleNotFoundError as exc:
-            if exc.name == f"hbmodel.commands.{name}":
-                continue  # command not built yet
-            raise
+        mod = importlib.import_module(f"hbmodel.commands.{name}")
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP),
                            formatter_class=argparse.RawDescriptionHelpFormatter)
         p.add_argument("--config", metavar="FILE.toml",
