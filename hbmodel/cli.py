@@ -15,7 +15,7 @@ import importlib
 import sys
 
 from . import __version__
-from .commands._common import add_resource_arguments
+from .commands._common import add_resource_arguments, toml_parser
 
 #: Sub-command modules, in the order ``hbmodel --help`` lists them.
 COMMANDS = ("predict", "mock", "fit", "distance", "classify", "batch", "demo")
@@ -33,8 +33,7 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _load_config(path: str) -> dict:
-    import tomllib
-
+    tomllib = toml_parser()
     try:
         with open(path, "rb") as fh:
             cfg = tomllib.load(fh)
@@ -134,12 +133,7 @@ def build_parser() -> tuple[argparse.ArgumentParser, dict]:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     modules = {}
     for name in COMMANDS:
-        try:
-            mod = importlib.import_module(f"hbmodel.commands.{name}")
-        except ModuleNotFoundError as exc:
-            if exc.name == f"hbmodel.commands.{name}":
-                continue  # command not built yet
-            raise
+        mod = importlib.import_module(f"hbmodel.commands.{name}")
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP),
                            formatter_class=argparse.RawDescriptionHelpFormatter)
         p.add_argument("--config", metavar="FILE.toml",

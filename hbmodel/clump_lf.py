@@ -31,14 +31,7 @@ from typing import Any
 
 import numpy as np
 from scipy import ndimage, optimize, special
-
-try:  # a dependency of scikit-learn, hence always present with hbmodel's requirements
-    from threadpoolctl import threadpool_limits
-except ImportError:  # pragma: no cover
-    import contextlib
-
-    def threadpool_limits(**_kw):
-        return contextlib.nullcontext()
+from threadpoolctl import threadpool_limits
 
 from ._tables import read_table
 

@@ -68,6 +68,14 @@ def _interval(name, lo_hi):
     return lo, hi
 
 
+#: Valid bounds ``(lo, hi, hi included)`` of the uniform prior ranges: fractions lie in [0, 1] (the field
+#: fraction below 1, a catalogue of field stars only has no population to fit); the helium enrichment
+#: is modelled up to 0.15.
+_UNIFORM_BOUNDS = {"mass_loss": (0.0, np.inf, False), "mass_loss_sd": (0.0, np.inf, False),
+                   "helium_fraction": (0.0, 1.0, True), "delta_y": (0.0, 0.15, True),
+                   "field_fraction": (0.0, 1.0, False), "rgb_mass_sd": (0.0, np.inf, False)}
+
+
 @dataclass(frozen=True)
 class Priors:
     """Priors.  Gaussians are ``(mean, sd)``, uniforms ``(lo, hi)``; ``None`` = default.
@@ -101,20 +109,13 @@ class Priors:
         _pos_width("ebv", esd)
         if self.age_sd_gyr is not None:
             _pos_width("age", self.age_sd_gyr)
-        for name in ("mass_loss_sd", "helium_fraction", "delta_y", "field_fraction", "rgb_mass_sd"):
+        for name, (lo_ok, hi_ok, closed) in _UNIFORM_BOUNDS.items():
+            if getattr(self, name) is None:
+                continue
             lo, hi = _interval(name, getattr(self, name))
-            if lo < 0:
-                raise ValueError(f"prior range of {name} must be non-negative")
-        if self.mass_loss is not None:
-            lo, hi = _interval("mass_loss", self.mass_loss)
-            if lo < 0:
-                raise ValueError("prior range of mass_loss must be non-negative")
-        if not 0 <= self.helium_fraction[0] and self.helium_fraction[1] <= 1:
-            raise ValueError("helium_fraction prior must lie in [0, 1]")
-        if self.field_fraction[1] >= 1:
-            raise ValueError("field_fraction prior must lie below 1")
-        if self.delta_y[1] > 0.15:
-            raise ValueError("delta_y prior: the helium enrichment is modelled up to 0.15")
+            if lo < lo_ok or hi > hi_ok or (hi == hi_ok and not closed):
+                valid = f"[{lo_ok:g}, {hi_ok:g}{']' if closed else ')'}"
+                raise ValueError(f"prior range of {name} [{lo:g}, {hi:g}] must lie within {valid}")
         for name in ("colour_offset_sd", "mag_offset_sd"):
             if getattr(self, name) is not None:
                 _pos_width(name, getattr(self, name))

@@ -95,7 +95,8 @@ def _companions(mass_msun, feh, rng, bands):
 
 def star_sampler(population: Population, bands, rv=3.1, law="F99"):
     """The :class:`hbmodel.sampler.StarSampler` of ``population`` for these bands and extinction law
-    (built once and kept on the population, which is immutable, so repeated mocks reuse the tables)."""
+    (built once and kept on the population, so repeated mocks reuse the tables; assigning a defining
+    attribute of the population drops the cache, see ``Population._DEFINING_FIELDS``)."""
     from .sampler import StarSampler
     cache = population.__dict__.setdefault("_sampler_cache", {})
     key = (tuple(bands), float(rv), str(law))

@@ -5,7 +5,7 @@
   and redder than the RR Lyrae instability strip.
 * R-parameter: ``N_HB / N_RGB`` with the RGB stars brighter than the ZAHB level
   at the instability strip (Iben 1968, Nature 220, 143; Buzzoni et al. 1983,
-  A&A 128, 94), here in the V band when photometry is available.
+  A&A 128, 94), here in the V band.
 * Clump statistics: time-weighted median and 16-84% half-range of the absolute
   magnitudes of red-HB / clump stars.
 All numbers come from deterministic quadrature nodes: no Monte Carlo noise.
@@ -67,14 +67,6 @@ def zahb_at_strip(sub):
         mass = mc + menv
         logl = float(zahb_logl(mc, menv, sub.mh, sub.helium_excess))
     return logl, float(zahb_logteff(mc, menv, sub.mh, sub.helium_excess)), mass
-
-
-def _photometry_available():
-    try:
-        from . import photometry  # noqa: F401
-        return True
-    except ImportError:
-        return False
 
 
 def predict_summary(pop, bands=None) -> dict:
@@ -142,22 +134,17 @@ def predict_summary(pop, bands=None) -> dict:
         out["rrab_period_mean"] = None
     lz, tz, mz = zahb_at_strip(sub0)
     out["zahb_logl_rr"] = lz
-    photometry = _photometry_available()
-    if photometry:
-        from .photometry import absolute_magnitudes
-        from .giant_branch import log_g
-        mv_zahb = float(absolute_magnitudes(np.array([10 ** tz]), np.array([log_g(mz, lz, tz)]),
-                                            np.array([sub0.composition.feh]), np.array([lz]), ("V",))["V"][0])
-        out["zahb_mv_rr"] = mv_zahb
-        mv_rgb = st.select(rgb).absolute_magnitudes(("V",))["V"]
-        n_rgb = st.weight[rgb][mv_rgb < mv_zahb].sum()
-    else:
-        out["zahb_mv_rr"] = None
-        n_rgb = st.weight[rgb][st.logl[rgb] > lz].sum()
+    from .photometry import absolute_magnitudes
+    from .giant_branch import log_g
+    mv_zahb = float(absolute_magnitudes(np.array([10 ** tz]), np.array([log_g(mz, lz, tz)]),
+                                        np.array([sub0.composition.feh]), np.array([lz]), ("V",))["V"][0])
+    out["zahb_mv_rr"] = mv_zahb
+    mv_rgb = st.select(rgb).absolute_magnitudes(("V",))["V"]
+    n_rgb = st.weight[rgb][mv_rgb < mv_zahb].sum()
     out["r_parameter"] = float(w_hb.sum() / n_rgb) if n_rgb > 0 else None
     # RGB bump: magnitude of the pause luminosity and its star count (the pause time of
     # giant_branch.bump_pause_myr is the luminosity-function excess over the smooth RGB)
-    bump = _bump_summary(pop, tuple(bands or ALL_BANDS) if photometry else None)
+    bump = _bump_summary(pop, tuple(bands or ALL_BANDS))
     pause_weight = bump.pop("bump_pause_weight")
     out.update(bump)
     # clump / red HB statistics
@@ -167,15 +154,14 @@ def predict_summary(pop, bands=None) -> dict:
     if st.weight[red].sum() > 0:
         out["clump_teff"] = weighted_quantile(st.teff_k[red], st.weight[red], 0.5)
         out["clump_logl"] = weighted_quantile(st.logl[red], st.weight[red], 0.5)
-        if photometry:
-            bands = tuple(bands or ALL_BANDS)
-            mags = st.select(red).absolute_magnitudes(bands)
-            wr = st.weight[red]
-            out["clump_absmag"] = {b: weighted_quantile(mags[b], wr, 0.5) for b in bands}
-            out["clump_absmag_spread"] = {b: 0.5 * (weighted_quantile(mags[b], wr, 0.84)
-                                                    - weighted_quantile(mags[b], wr, 0.16)) for b in bands}
+        bands = tuple(bands or ALL_BANDS)
+        mags = st.select(red).absolute_magnitudes(bands)
+        wr = st.weight[red]
+        out["clump_absmag"] = {b: weighted_quantile(mags[b], wr, 0.5) for b in bands}
+        out["clump_absmag_spread"] = {b: 0.5 * (weighted_quantile(mags[b], wr, 0.84)
+                                                - weighted_quantile(mags[b], wr, 0.16)) for b in bands}
         out["bump_to_clump_ratio"] = float(pause_weight / st.weight[red].sum()) if pause_weight else None
-        out.update(_agb_bump_summary(st, red, bands if photometry else None))
+        out.update(_agb_bump_summary(st, red, bands))
     else:
         out["clump_teff"] = None
         out["clump_logl"] = None

@@ -253,6 +253,20 @@ class Population:
         Faintest RGB luminosity (log L/Lsun) included in star sets (default 0.8, near the RGB base).
     """
 
+    #: Attributes that define the population.  Assigning one after construction rebuilds the
+    #: sub-populations and drops every derived cache kept on the instance (``_*_cache``: sampler
+    #: tables, eta maps, HB lifetimes), so nothing computed for the old value is reused.
+    _DEFINING_FIELDS = ("components", "helium", "mass_loss", "helium_enriched_fraction", "helium_delta_y",
+                        "logl_rgb_min")
+
+    def __setattr__(self, name, value):
+        object.__setattr__(self, name, value)
+        if name in self._DEFINING_FIELDS and "subpopulations" in self.__dict__:
+            for key in [k for k in self.__dict__ if k.startswith("_") and k.endswith("_cache")]:
+                del self.__dict__[key]
+            if name != "mass_loss":  # the sub-populations do not depend on the mass loss
+                object.__setattr__(self, "subpopulations", self._build_subpopulations())
+
     def __init__(self, feh=None, age_gyr=None, *, alpha_fe=0.0, helium=None, mass_loss=None,
                  components=None, helium_enriched_fraction=0.0, helium_delta_y=0.0, logl_rgb_min=0.8):
         if components is None:

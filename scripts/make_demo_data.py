@@ -4,11 +4,11 @@
 Only observables are written (magnitudes and errors); the truth stays in scenario.toml.
 """
 import sys
-import tomllib
 from pathlib import Path
 
 import numpy as np
 
+from hbmodel.commands._common import toml_parser
 from hbmodel.io import write_table
 from hbmodel.mock import ObservationSpec, make_mock
 from hbmodel.population import MassLoss, Population
@@ -42,7 +42,7 @@ def _masses(s):
 
 
 def main():
-    scen = tomllib.loads((HERE / "scenario.toml").read_text())
+    scen = toml_parser().loads((HERE / "scenario.toml").read_text())
     for key, s in scen.items():
         obs = ObservationSpec(distance_modulus=s["distance_modulus"], ebv=s["ebv"], depth=s["depth"],
                               window=tuple(s["window"]) if "window" in s else None)

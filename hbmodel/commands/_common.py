@@ -8,6 +8,19 @@ import math
 import numpy as np
 
 
+def toml_parser():
+    """The TOML parser module: the standard library's ``tomllib`` (Python >= 3.11), else the ``tomli``
+    package (a dependency on Python 3.10); imported on use so that no command needs it to start."""
+    try:
+        import tomllib
+    except ImportError:
+        try:
+            import tomli as tomllib
+        except ImportError:
+            raise ValueError("reading TOML needs Python >= 3.11 or the tomli package (pip install tomli)") from None
+    return tomllib
+
+
 def add_population_arguments(p: argparse.ArgumentParser, *, mass_loss_required=True, age_required=True):
     g = p.add_argument_group("population")
     g.add_argument("--feh", type=float, required=True, help="[Fe/H] (dex), -2.5 ... +0.5")

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import time
-import tomllib
 from importlib import resources
 
 import numpy as np
@@ -31,7 +30,8 @@ def add_arguments(p):
 
 def scenario() -> dict:
     text = resources.files("hbmodel.demo_data").joinpath("scenario.toml").read_text(encoding="utf-8")
-    return tomllib.loads(text)
+    from ._common import toml_parser
+    return toml_parser().loads(text)
 
 
 def _catalog(name):

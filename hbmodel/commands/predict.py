@@ -1,6 +1,8 @@
 """``hbmodel predict``: deterministic HB / clump predictions for a population."""
 from __future__ import annotations
 
+import re
+
 import numpy as np
 
 from ._common import add_population_arguments, dumps, population_from_args
@@ -23,7 +25,8 @@ def add_arguments(p):
     g = p.add_argument_group("grids")
     g.add_argument("--grid", default=None, help="HB-type diagram over [Fe/H]: feh=START:STOP:STEP")
     g.add_argument("--series", default=None, help="lines of the HB-type diagram: age=V1,V2,... or eta=V1,...")
-    g.add_argument("--clump-grid", default=None, help="clump magnitudes over age=A:B:S,feh=F:G:S")
+    g.add_argument("--clump-grid", default=None,
+                   help="clump magnitudes over age=A:B:S,feh=F:G:S (either order; a list v1,v2,... for either)")
     g.add_argument("--bands", default=None,
                    help="bands of the clump magnitudes (default: all bands; I,Ks for --clump-grid)")
     g.add_argument("--out", default=None, help="output directory of a grid (table + PNG)")
@@ -58,6 +61,20 @@ def _fmt(v, spec=".3f"):
     return "—" if v is None else format(v, spec)
 
 
+def _clump_grid_spec(text):
+    """``age=A:B:S,feh=F:G:S`` (either order, spaces allowed; each a range or a list) -> (age, feh) texts."""
+    usage = f"--clump-grid must be age=A:B:S,feh=F:G:S (either order; lists v1,v2,... also work), got {text!r}"
+    spec = {}
+    for part in re.split(r",(?=\s*[A-Za-z_]\w*\s*=)", text):  # a comma starts a new key only before NAME=
+        key, eq, value = (x.strip() for x in part.partition("="))
+        if not eq or key not in ("age", "feh") or key in spec or not value:
+            raise ValueError(usage)
+        spec[key] = value
+    if set(spec) != {"age", "feh"}:
+        raise ValueError(usage)
+    return spec["age"], spec["feh"]
+
+
 def _grid(args):
     from ..grids import clump_grid, grid_estimate, hb_type_grid, parse_range, range_count
     from ..photometry import parse_bands
@@ -74,7 +91,7 @@ def _grid(args):
     if args.age is None:
         raise ValueError("give --age (the base population of the grid)")
     eta = args.eta if args.eta is not None else 0.45
-    if args.grid:
+    if args.grid is not None:
         key, _, rng = args.grid.partition("=")
         if key.strip() != "feh":
             raise ValueError("--grid must be feh=START:STOP:STEP")
@@ -94,13 +111,7 @@ def _grid(args):
         save_figure(fig, out / "hb_type_grid.png", force=args.force)
         print(f"wrote {out / 'hb_type_grid.ecsv'} and {out / 'hb_type_grid.png'} ({len(t)} models)")
         return 0
-    spec = dict(item.split("=", 1) for item in args.clump_grid.split(",feh=", 1)[0:1])
-    try:
-        age_txt = args.clump_grid.split("age=", 1)[1].split(",feh=", 1)[0]
-        feh_txt = args.clump_grid.split("feh=", 1)[1]
-    except IndexError:
-        raise ValueError("--clump-grid must be age=A:B:S,feh=F:G:S") from None
-    del spec
+    age_txt, feh_txt = _clump_grid_spec(args.clump_grid)
     budget(range_count(age_txt, "--clump-grid age") * range_count(feh_txt, "--clump-grid feh"), "this clump grid")
     ages, fehs = parse_range(age_txt, "--clump-grid age"), parse_range(feh_txt, "--clump-grid feh")
     bands = list(parse_bands(args.bands or "I,Ks", "--bands"))
@@ -119,7 +130,7 @@ def run(args):
     from ..photometry import parse_bands
     if args.bands is not None:  # checked in every mode: an unknown band is an error, never ignored
         args.bands = ",".join(parse_bands(args.bands, "--bands"))
-    if args.grid or args.clump_grid:
+    if args.grid is not None or args.clump_grid is not None:  # an empty grid option is an error, not a prediction
         return _grid(args)
     from ..grids import grid_estimate
     from ..resources import check_budget
