@@ -41,7 +41,7 @@ class Example:
     out_end: int          # one past the last printed line
     printed: tuple        # the printed lines as shown in the README (indent removed)
     shown: bool           # True for a "$" example (its output is checked); False for a setup command
-    kind: str = "hbmodel"  # "hbmodel" or "python" (a python3 -c snippet)
+    kind: str = "hbmodel"  # "hbmodel", "python" (a python3 -c snippet) or "shell" (a printf ... > FILE line)
 
     @property
     def argv(self):
@@ -91,6 +91,11 @@ def parse(readme_text: str) -> list[Example]:
             out.append(Example(code, i, j + 1, j + 1, (), False, "python"))
             i = j + 1
             continue
+        if ln.startswith(_INDENT + "printf "):  # a file written by the shell (e.g. a jobs table)
+            cmd, j = _join(lines, i)
+            out.append(Example(cmd, i, j, j, (), False, "shell"))
+            i = j
+            continue
         shown = ln.startswith(_INDENT + "$ hbmodel ")
         plain = ln.startswith(_INDENT + "hbmodel ") and not ln.startswith(_INDENT + "hbmodel --")
         if not (shown or plain):
@@ -112,6 +117,8 @@ _FILE = r"[\w./-]+\.(?:ecsv|csv|fits|parquet|json|png)"
 
 
 def _outputs(ex: Example):
+    if ex.kind == "shell":
+        return set(re.findall(r">\s*(" + _FILE + r")\s*$", ex.command))
     if ex.kind == "python":
         return set(re.findall(r"\.write\('(" + _FILE + r")'\)", ex.command))
     a, target = ex.redirect
@@ -120,6 +127,8 @@ def _outputs(ex: Example):
 
 
 def _inputs(ex: Example):
+    if ex.kind == "shell":  # the files the written text names (e.g. the catalogues of a jobs table)
+        return set(re.findall(r"(?<![\w/])(" + _FILE + r")", ex.command)) - _outputs(ex)
     if ex.kind == "python":
         return set(re.findall(r"read\('(" + _FILE + r")'\)", ex.command))
     a, _ = ex.redirect
@@ -140,10 +149,12 @@ def _is_slow(ex: Example):
     return ex.kind == "hbmodel" and ex.subcommand in SLOW_COMMANDS
 
 
-def select(examples, fast=False, facts=()):
-    """The ``$`` examples to run (and check), with the setup commands they and the ``facts`` need
-    (transitively), in README order.  ``fast`` leaves out the slow commands and what needs them."""
+def select(examples, fast=False, facts=(), extra=()):
+    """The ``$`` examples to run (and check), with the setup commands they, the ``facts`` and the
+    ``extra`` examples (e.g. those writing the README's figures) need (transitively), in README order.
+    ``fast`` leaves out the slow commands and what needs them."""
     todo = [e for e in examples if e.shown and not (fast and _is_slow(e))]
+    todo += [e for e in extra if e not in todo]
     need = set().union(set(), *(_inputs(e) for e in todo), *(FACT_INPUTS[f] for f in facts))
     setup = [e for e in examples if not e.shown]
     while True:
@@ -165,8 +176,13 @@ def run(examples, workdir: Path, *, timeout=1800):
     got = {}
     for ex in examples:
         argv, target = ex.redirect
-        cmd = [sys.executable, "-c", ex.command] if ex.kind == "python" else [sys.executable, "-m", "hbmodel",
-                                                                               *argv[1:]]
+        if ex.kind == "shell":
+            cmd = ["bash", "-c", ex.command]
+            argv, target = [], None
+        elif ex.kind == "python":
+            cmd = [sys.executable, "-c", ex.command]
+        else:
+            cmd = [sys.executable, "-m", "hbmodel", *argv[1:]]
         proc = subprocess.run(cmd, cwd=workdir, env=env, capture_output=True, text=True, timeout=timeout)
         if target:
             (workdir / target).write_text(proc.stdout, encoding="utf-8")
@@ -234,7 +250,7 @@ FIGURES = {"hbtype/hb_type_grid.png": "predict_hb_type.png", "clumpgrid/clump_gr
            "sandpiper9_cmd.png": "mock_cmd.png", "sandpiper9_fit/hess.png": "fit_hess.png",
            "sandpiper9_fit/cmd.png": "fit_cmd.png", "sandpiper9_fit/corner.png": "fit_corner.png",
            "sandpiper9_fit/ppc.png": "fit_ppc.png", "sandpiper9_fit/hb_mass.png": "fit_hb_mass.png",
-           "tern_south_dist/lf.png": "distance_lf.png"}
+           "tern_south_dist/lf.png": "distance_lf.png", "fields_out/summary.png": "batch_summary.png"}
 
 def _plover3_truth(_workdir):
     sys.path.insert(0, str(ROOT))
@@ -280,10 +296,9 @@ def main(argv=None) -> int:
         fast_todo = select(examples, fast=True)
         made = set().union(set(), *(_outputs(e) for e in fast_todo))
         facts = [f for f in facts if FACT_INPUTS[f] <= made or not _needs_slow(examples, f)]
-    todo = select(examples, fast=a.fast, facts=facts)
-    if a.write and not a.fast:  # the commands that write the README's figures
-        todo = sorted(set(todo) | {e for e in map(lambda f: _made_by(examples, f), FIGURES) if e},
-                      key=lambda e: e.first_line)
+    figure_makers = [e for e in map(lambda f: _made_by(examples, f), FIGURES) if e] \
+        if a.write and not a.fast else []  # the commands that write the README's figures
+    todo = select(examples, fast=a.fast, facts=facts, extra=figure_makers)
     with tempfile.TemporaryDirectory(prefix="hbmodel_readme_") as tmp:
         got = run(todo, Path(tmp))
         values = {f: FACTS[f](Path(tmp)) for f in facts}
