@@ -121,6 +121,45 @@ class Priors:
                 _pos_width(name, getattr(self, name))
 
 
+#: Quoted colour errors may exceed the observed colour scatter of the catalogue's giant branch by at most
+#: this factor (plus ``ERROR_SCALE_SLACK_MAG``) before the fit refuses them: the observed scatter includes
+#: the errors, so quoted errors several times larger are in the wrong unit (millimag, a flux/sigma).
+ERROR_SCALE_MAX_RATIO = 3.0
+ERROR_SCALE_SLACK_MAG = 0.03
+
+
+def observed_locus_scatter(colour, mag, bin_mag=0.25, min_stars=8):
+    """Robust colour scatter (mag) of the narrowest sequence of a CMD: per ``bin_mag`` magnitude bin the
+    normalised median absolute deviation of the colours about their median (1.4826 MAD, common
+    practice), then the median over the bins holding at least ``min_stars`` stars (the RGB dominates most
+    bins; the HB's wide colour range affects only a few).  NaN with too few stars."""
+    colour, mag = np.asarray(colour, float), np.asarray(mag, float)
+    if colour.size < min_stars:
+        return float("nan")
+    edges = np.arange(mag.min(), mag.max() + bin_mag, bin_mag)
+    idx = np.digitize(mag, edges)
+    out = []
+    for k in np.unique(idx):
+        c = colour[idx == k]
+        if c.size >= min_stars:
+            out.append(1.4826 * np.median(np.abs(c - np.median(c))))
+    return float(np.median(out)) if out else float("nan")
+
+
+def check_error_scale(colour, mag, colour_err, bands):
+    """ValueError when the quoted photometric errors cannot be magnitudes: their median colour error is
+    more than :data:`ERROR_SCALE_MAX_RATIO` times (+ :data:`ERROR_SCALE_SLACK_MAG`) the observed colour
+    scatter of the CMD's narrowest sequence (:func:`observed_locus_scatter`)."""
+    obs = observed_locus_scatter(colour, mag)
+    quoted = float(np.median(colour_err))
+    if np.isfinite(obs) and quoted > ERROR_SCALE_MAX_RATIO * obs + ERROR_SCALE_SLACK_MAG:
+        b1, b2 = bands
+        raise ValueError(f"the quoted errors {b1}_err, {b2}_err (median colour error {quoted:.3g} mag) are "
+                         f"{quoted / max(obs, 1e-6):.0f}x the observed colour scatter of the giant branch "
+                         f"({obs:.3g} mag): they cannot be magnitude errors - are they in millimag, or a "
+                         f"signal-to-noise (flux over error) column? Give 1-sigma errors in magnitudes")
+
+
 def _read_table_like(t, what):
     from astropy.table import Table
     if isinstance(t, Table):
@@ -294,6 +333,7 @@ class MassLossFit:
             c_lo, c_hi = self._user_region(region)[:2]
             raise ValueError(f"no stars in the fitted region ({'-'.join(self.colour_)} {c_lo:.2f}..{c_hi:.2f}, "
                              f"{bands[0]} {region[2]:.2f}..{region[3]:.2f})")
+        check_error_scale(colour[inr], mag[inr], np.hypot(errs[bands[0]][inr], errs[bands[1]][inr]), bands)
         near = (mag >= region[2] - 1.0) & (mag <= region[3] + 1.0)
         em = self.error_model or ErrorModel.from_catalog({b: mags[b][near] for b in bands},
                                                          {b: errs[b][near] for b in bands})

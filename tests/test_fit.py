@@ -265,3 +265,31 @@ def test_surrogate_hb_nodes_follow_the_population_physics():
         o = np.argsort(x)
         return np.interp(grid, x[o], np.cumsum(wt[o]) / wt.sum())
     assert np.max(np.abs(cdf(ref, st.weight) - cdf(mag, w))) < 0.02
+
+
+@pytest.mark.parametrize("case", ["millimag", "flux_over_error"])
+def test_errors_in_the_wrong_unit_are_refused(tmp_path, case, capsys):
+    # Behaviour (issue case): errors quoted in millimag (x1000) or a Gaia-style flux-over-error column
+    # (a signal-to-noise ~100) mapped as the error were accepted and gave dM 0.008 / 0.149 for a true 0.19 /
+    # 0.085.  The observed colour scatter of the giant branch bounds the errors (it includes them; common
+    # practice), so such errors are refused in one line before any work.
+    pop = Population(-1.7, 12.5, alpha_fe=0.3, mass_loss=MassLoss.from_eta(0.45, 0.03))
+    cat = make_mock(pop, bands=("V", "I"), rng=np.random.default_rng(4), n_hb=300,
+                    obs=ObservationSpec(distance_modulus=15.0, ebv=0.05, depth={"V": 22.5, "I": 21.8}))
+    good = tmp_path / "good.ecsv"
+    cat.write(good)
+    for b in ("V", "I"):
+        cat[f"{b}_err"] = cat[f"{b}_err"] * 1000.0 if case == "millimag" else 100.0 + 0.0 * cat[f"{b}_err"]
+    bad = tmp_path / "bad.ecsv"
+    cat.write(bad)
+    args = ["fit", str(bad), "--bands", "V,I", "--feh", "-1.7", "--alpha-fe", "0.3", "--age", "12.5",
+            "--distance-modulus", "15", "--ebv", "0.05", "--sampler", "laplace", "--no-compare"]
+    assert main(args) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "millimag" in err and "flux over error" in err
+    # the same catalogue with its errors in magnitudes passes the check
+    from hbmodel.fit import check_error_scale
+    from astropy.table import Table
+    t = Table.read(good)
+    c, m = np.asarray(t["V"]) - np.asarray(t["I"]), np.asarray(t["V"])
+    check_error_scale(c, m, np.hypot(t["V_err"], t["I_err"]), ("V", "I"))
