@@ -397,6 +397,39 @@ def _check_target(path: Path, force: bool) -> None:
         raise ValueError(f"cannot write {path}: directory {parent} is not writable")
 
 
+def check_output_file(path, *, force: bool = False) -> Path:
+    """Raise ``ValueError`` now (before any work) if ``path`` could not be written later: missing or
+    read-only directory, an existing directory, or an existing file without ``force``."""
+    try:
+        path = Path(os.fspath(path))
+    except TypeError:
+        raise ValueError(f"output path must be a string or path, got {path!r}") from None
+    _check_target(path, force)
+    return path
+
+
+def check_output_dir(path, *, force: bool = False) -> Path:
+    """Raise ``ValueError`` now if :func:`prepare_out_dir` would refuse ``path`` later (nothing is created)."""
+    try:
+        path = Path(os.fspath(path))
+    except TypeError:
+        raise ValueError(f"output directory must be a string or path, got {path!r}") from None
+    if path.exists() and not path.is_dir():
+        raise ValueError(f"output directory {path} exists and is not a directory")
+    if path.is_dir():
+        if any(path.iterdir()) and not force:
+            raise ValueError(f"output directory {path} exists and is not empty; use --force to overwrite")
+        if not os.access(path, os.W_OK | os.X_OK):
+            raise ValueError(f"output directory {path} is not writable")
+        return path
+    base = path.parent
+    while not base.exists() and base != base.parent:
+        base = base.parent
+    if not base.is_dir() or not os.access(base, os.W_OK | os.X_OK):
+        raise ValueError(f"cannot create output directory {path}: {base} is not a writable directory")
+    return path
+
+
 def _atomic(path, writer, *, force: bool) -> Path:
     """Run ``writer(tmp_path)`` on a temporary file beside ``path``, then move it into place."""
     try:

@@ -227,3 +227,20 @@ def test_eta_that_strips_every_envelope_says_why(capsys):
     assert main(["predict", "--feh", "-1", "--age", "12", "--eta", f"{0.8 * limit:.3f}", "--json"]) == 0
     res = json.loads(capsys.readouterr().out)
     assert res["hb_mass_mean"] > res["core_mass"] and res["notes"] == []
+
+
+def test_outputs_are_checked_before_any_work(tmp_path, capsys):
+    # Issue 15 ("late failures"): fit checked --out only after the sampling, and `mock --plot existing.png`
+    # exited 2 but left the table written.  Both are now refused before any work.
+    from hbmodel.cli import main
+    (tmp_path / "old.png").write_bytes(b"not a figure")
+    table = tmp_path / "m.ecsv"
+    assert main(["mock", "--feh", "-1.5", "--age", "12", "--eta", "0.4", "--n-hb", "50", "--bands", "V,I",
+                 "--out", str(table), "--plot", str(tmp_path / "old.png")]) == 2
+    assert "exists" in capsys.readouterr().err and not table.exists()
+    assert main(["mock", "--feh", "-1.5", "--age", "12", "--eta", "0.4", "--n-hb", "50", "--bands", "V,I",
+                 "--distance-modulus", "15", "--out", str(table)]) == 0
+    (tmp_path / "afile").write_text("x")
+    assert main(["fit", str(table), "--bands", "V,I", "--feh", "-1.5", "--age", "12",
+                 "--distance-modulus", "15", "--out", str(tmp_path / "afile")]) == 2
+    assert "not a directory" in capsys.readouterr().err

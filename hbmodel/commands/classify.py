@@ -47,11 +47,12 @@ def _typical(t, col, given, default):
 
 def run(args):
     from ..classify import CHeBClassifier
-    from ..io import read_catalog, write_table
+    from ..io import check_output_file, read_catalog, write_table
     from .distance import _population
     from ..resources import catalog_task_estimate, check_budget
     check_budget(catalog_task_estimate("classify", args.catalog, out=args.out), max_memory=args.max_memory,
                  max_disk=args.max_disk)
+    check_output_file(args.out, force=args.force)
     mapping = parse_mapping(args.columns, "--columns")
     req = ["teff", "logg"] + (["mass"] if args.use_mass else [])
     t = read_catalog(args.catalog, columns=mapping or None, required=req)

@@ -100,11 +100,9 @@ def run(args):
     pri = Priors(distance_modulus=None if args.distance_modulus is None else (args.distance_modulus, args.dm_sd),
                  ebv=(args.ebv, args.ebv_sd), age_sd_gyr=args.age_sd)
     out_dir = None
-    if args.out:
-        from pathlib import Path
-        p = Path(args.out)
-        if p.is_dir() and any(p.iterdir()) and not args.force:
-            raise ValueError(f"output directory {p} exists and is not empty; use --force to overwrite")
+    if args.out:  # refused now, not after the sampling
+        from ..io import check_output_dir
+        check_output_dir(args.out, force=args.force)
     est = MassLossFit(pop, pri, args.model, bands=bands, colour=colour, region=region,
                       zero_points=not args.no_zero_points,
                       sampler=args.sampler, compare_models=not args.no_compare and cat is not None,

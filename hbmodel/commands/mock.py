@@ -126,6 +126,10 @@ def run(args):
     from ..resources import check_budget
     check_budget(mock_estimate(pop, bands=bands, obs=obs, out=args.out, n_hb=args.n_hb, total_mass_msun=args.total_mass,
                                plot=bool(args.plot)), max_memory=args.max_memory, max_disk=args.max_disk)
+    from ..io import check_output_file
+    check_output_file(args.out, force=args.force)  # both outputs checked before any work: no table
+    if args.plot:                                   # is left behind by a refused plot
+        check_output_file(args.plot, force=args.force)
     rng = np.random.default_rng(args.seed)
     table = make_mock(pop, bands=bands, rng=rng, n_hb=args.n_hb, total_mass_msun=args.total_mass, obs=obs)
     if len(table) == 0:
