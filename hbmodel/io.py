@@ -619,17 +619,8 @@ def prepare_out_dir(path, *, force: bool = False) -> Path:
     refused unless ``force=True`` -- and even then nothing in it is deleted;
     files are replaced only as they are rewritten.
     """
-    try:
-        path = Path(os.fspath(path))
-    except TypeError:
-        raise ValueError(f"output directory must be a string or path, got {path!r}") from None
-    if path.exists() and not path.is_dir():
-        raise ValueError(f"output directory {path} exists and is not a directory")
+    path = check_output_dir(path, force=force)
     if path.is_dir():
-        if any(path.iterdir()) and not force:
-            raise ValueError(f"output directory {path} exists and is not empty; use --force to overwrite")
-        if not os.access(path, os.W_OK | os.X_OK):
-            raise ValueError(f"output directory {path} is not writable")
         return path
     try:
         path.mkdir(parents=True, exist_ok=True)
