@@ -102,13 +102,15 @@ class DistanceResult:
     extinction_mag: float
     n_stars: int
     lf: object = field(repr=False)
+    n_dropped: int = 0      # stars without a finite magnitude (missing values), dropped before the fit
 
     def to_dict(self):
         return {"band": self.band, "distance_modulus": self.distance_modulus, "distance_kpc": self.distance_kpc,
                 "clump_peak_mag": self.clump_peak_mag, "clump_peak_mag_err": self.clump_peak_mag_err,
                 "clump_absmag": self.clump_absmag, "clump_absmag_err": self.clump_absmag_err,
                 "population_correction": self.population_correction, "ebv": self.ebv, "ebv_err": self.ebv_err,
-                "extinction_mag": self.extinction_mag, "n_stars": self.n_stars, "lf_fit": self.lf.to_dict()}
+                "extinction_mag": self.extinction_mag, "n_stars": self.n_stars, "n_rows_dropped_missing": self.n_dropped,
+                "lf_fit": self.lf.to_dict()}
 
 
 def _pct(x):
@@ -156,6 +158,7 @@ def measure_distance(mag, pop: Population, band: str, *, colour_mags=None, colou
     mag = np.asarray(mag, float)
     if mag_err is not None:
         mag_err = np.asarray(mag_err, float)[np.isfinite(mag)]
+    n_dropped = int(np.sum(~np.isfinite(mag)))
     mag = mag[np.isfinite(mag)]
     if mag.size < 50:
         raise ValueError(f"too few stars for a clump fit ({mag.size}; need at least 50)")
@@ -207,4 +210,4 @@ def measure_distance(mag, pop: Population, band: str, *, colour_mags=None, colou
     dist = 10.0 ** (dm / 5.0 + 1.0) / 1e3
     return DistanceResult(band, _pct(dm), _pct(dist), float(lf.peak_mag), peak_err,
                           model.peak_absmag, abs_err, model.peak_absmag - _reference_peak(band, smear), float(ebv),
-                          ebv_err, float(r_band * ebv), int(lf.n_stars), lf)
+                          ebv_err, float(r_band * ebv), int(lf.n_stars), lf, n_dropped)

@@ -267,7 +267,7 @@ class MassLossFit:
 
     def _prepare_cmd(self, catalog, pri, bands):
         from .extinction import extinction_ratio
-        from .io import check_errors
+        from .io import check_errors, drop_missing
         t = _read_table_like(catalog, "catalogue")
         if len(t) == 0:
             raise ValueError("the catalogue is empty")
@@ -275,6 +275,7 @@ class MassLossFit:
         miss = [c for c in need if c not in t.colnames]
         if miss:
             raise ValueError(f"catalogue lacks column(s) {', '.join(miss)} (available: {', '.join(t.colnames[:20])})")
+        t, self.n_dropped_ = drop_missing(t, need)   # missing magnitudes or errors: dropped and counted
         check_errors(t, bands)
         mags = {b: np.asarray(t[b], float) for b in bands}
         errs = {b: np.asarray(t[f"{b}_err"], float) for b in bands}
@@ -618,6 +619,7 @@ class MassLossFit:
         rng = self.seed if isinstance(self.seed, np.random.Generator) else np.random.default_rng(self.seed)
         self._has_cmd = catalog is not None
         self._has_masses = masses is not None
+        self.n_dropped_ = 0
         if not (self._has_cmd or self._has_masses):
             raise ValueError("give a catalogue and/or a table of measured masses")
         comp = self.population.components[0]
@@ -861,6 +863,7 @@ class MassLossFit:
         out = dict(self.summary())
         out.update({
             "model": self.model, "n_stars": self.n_stars_, "n_masses": self.n_masses_, "sampler": self.sampler,
+            "n_rows_dropped_missing": self.n_dropped_,
             "bands": list(self.bands), "colour": "-".join(self.colour_),
             "region": list(self._user_region(self.region_)) if self._has_cmd else None,
             "convergence": {"autocorr_time": self.autocorr_time_, "n_eff": self.n_eff_,

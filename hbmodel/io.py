@@ -48,6 +48,7 @@ __all__ = [
     "read_catalog",
     "check_errors",
     "finite_rows",
+    "drop_missing",
     "write_table",
     "atomic_write_text",
     "atomic_write_bytes",
@@ -341,6 +342,23 @@ def finite_rows(table, cols: Sequence[str]) -> np.ndarray:
     for c in cols:
         mask &= np.isfinite(_column_as_float(table, c))
     return mask
+
+
+#: A catalogue losing more than this fraction of its rows to missing values is refused (common practice:
+#: such a cut changes the sample, not just its noise).
+MAX_MISSING_FRACTION = 0.5
+
+
+def drop_missing(table, cols: Sequence[str], what: str = "catalogue"):
+    """The one missing-value policy of every command: rows with a NaN, infinite or masked value in any of
+    ``cols`` are dropped and counted; returns ``(kept_table, n_dropped)``.  ``ValueError`` when more than
+    :data:`MAX_MISSING_FRACTION` of the rows would go."""
+    ok = finite_rows(table, cols)
+    n_drop = int((~ok).sum())
+    if n_drop > MAX_MISSING_FRACTION * len(table):
+        raise ValueError(f"{what}: {n_drop} of {len(table)} rows have a missing value in "
+                         f"{', '.join(cols)}; refusing to fit a catalogue that loses more than half its rows")
+    return (table[ok] if n_drop else table), n_drop
 
 
 def check_errors(table, cols: Sequence[str]) -> None:

@@ -244,3 +244,33 @@ def test_outputs_are_checked_before_any_work(tmp_path, capsys):
     assert main(["fit", str(table), "--bands", "V,I", "--feh", "-1.5", "--age", "12",
                  "--distance-modulus", "15", "--out", str(tmp_path / "afile")]) == 2
     assert "not a directory" in capsys.readouterr().err
+
+
+def test_missing_values_are_dropped_counted_and_bounded(tmp_path, capsys):
+    # Issue 15 ("inconsistent missing values"): fit refused any NaN or masked magnitude/error while distance
+    # dropped them silently.  One policy now: rows with a missing value in a used column are dropped and
+    # counted (printed and in the JSON); a catalogue losing more than half its rows is refused.
+    import json
+
+    import numpy as np
+    from astropy.table import Table
+
+    from hbmodel.cli import main
+    cat = tmp_path / "m.ecsv"
+    assert main(["mock", "--feh", "-1.5", "--age", "12", "--eta", "0.4", "--n-hb", "150", "--bands", "V,I",
+                 "--distance-modulus", "15", "--seed", "3", "--out", str(cat)]) == 0
+    t = Table.read(cat)
+    t["V"] = np.ma.masked_array(t["V"], mask=np.arange(len(t)) % 10 == 0)   # 10 % masked (Gaia-style gaps)
+    t["I_err"][1] = np.nan
+    holes = tmp_path / "holes.ecsv"
+    t.write(holes)
+    capsys.readouterr()
+    fit = ["fit", str(holes), "--bands", "V,I", "--feh", "-1.5", "--age", "12", "--distance-modulus", "15",
+           "--ebv", "0.05", "--sampler", "laplace", "--no-compare", "--json"]
+    assert main(fit) == 0
+    n_missing = int(np.sum(np.arange(len(t)) % 10 == 0)) + 1
+    assert json.loads(capsys.readouterr().out)["n_rows_dropped_missing"] == n_missing
+    t["V"] = np.ma.masked_array(t["V"], mask=np.arange(len(t)) % 3 != 0)    # two thirds missing
+    t.write(holes, overwrite=True)
+    assert main(fit) == 2
+    assert "more than half" in capsys.readouterr().err

@@ -95,7 +95,7 @@ def _report_inputs(args) -> dict:
 
 def run(args):
     from ..clump_distance import measure_distance
-    from ..io import atomic_write_json, prepare_out_dir, read_catalog
+    from ..io import atomic_write_json, drop_missing, prepare_out_dir, read_catalog
     from ..photometry import parse_colour, resolve_band
     band = resolve_band(args.band, "--band")
     colour = parse_colour(args.color, "--color") if args.color else None
@@ -112,6 +112,7 @@ def run(args):
     t = read_catalog(args.catalog, columns=mapping or None, required=sorted(set(needed)))
     if len(t) == 0:
         raise ValueError("the catalogue is empty")
+    t, n_dropped = drop_missing(t, sorted(set(needed)))  # one missing-value policy: dropped and counted
     mag = np.asarray(t[band], float)
     err = np.asarray(t[f"{band}_err"], float) if f"{band}_err" in t.colnames else None
     region = None
@@ -128,6 +129,7 @@ def run(args):
                            mag_range=region, mag_err=err)
     from ..reports import distance_error_budget
     d = res.to_dict()
+    d["n_rows_dropped_missing"] = n_dropped + res.n_dropped
     d["error_budget_mag"] = distance_error_budget(res)  # 1-sigma terms: statistical and systematic apart
     if out is not None:
         from ..plot_style import save_figure
@@ -149,7 +151,9 @@ def run(args):
         from ..reports import distance_error_budget, format_value, lf_warning
         eb = distance_error_budget(res)
         print(f"clump peak {args.band} = {format_value(res.clump_peak_mag, res.clump_peak_mag_err)} mag "
-              f"({res.n_stars} stars in the fit window)")
+              f"({res.n_stars} stars in the fit window"
+              + (f"; {d['n_rows_dropped_missing']} rows with a missing value dropped" if d["n_rows_dropped_missing"] else "")
+              + ")")
         print(f"model clump M_{args.band} = {format_value(res.clump_absmag, res.clump_absmag_err)} mag "
               f"(population correction {res.population_correction:+.3f} mag vs the solar-neighbourhood clump)")
         print(f"E(B-V) = {format_value(res.ebv, res.ebv_err)} mag, A_{args.band} = {res.extinction_mag:.3f} mag")

@@ -122,7 +122,8 @@ def run(args):
         print(dumps(res))
         return 0
     s = res
-    print(f"hbmodel fit: model {est.model}, {est.n_stars_} stars in the region, {est.n_masses_} masses")
+    dropped = f" ({est.n_dropped_} rows with a missing value dropped)" if est.n_dropped_ else ""
+    print(f"hbmodel fit: model {est.model}, {est.n_stars_} stars in the region, {est.n_masses_} masses{dropped}")
     for k in ("mass_loss", "mass_loss_sd", "hb_mass_mean", "eta", "distance_modulus", "ebv", "helium_fraction",
               "delta_y"):
         if k in s and s[k]["median"] is not None:
