@@ -761,7 +761,7 @@ def _summary_figure(summary, max_panels, Figure, FigureCanvasAgg, axis_label):
     n = len(summary)
     x = np.arange(n)
     npan = max(len(keys), 1)
-    fig = Figure(figsize=(min(max(6.0, 0.35 * n + 3), 20.0), 1.9 * npan + 0.8))
+    fig = Figure(figsize=(min(max(6.0, 0.35 * n + 3), 20.0), 1.9 * npan + 0.8), layout="constrained")
     FigureCanvasAgg(fig)
     axes = fig.subplots(npan, 1, sharex=True, squeeze=False)[:, 0]
     ok = np.array([s != "failed" for s in summary["status"]])
@@ -788,8 +788,7 @@ def _summary_figure(summary, max_panels, Figure, FigureCanvasAgg, axis_label):
     axes[-1].set_xlabel("job" if step == 1 else f"job (one in {step} labelled)", fontsize=8)
     axes[-1].set_xlim(-0.7, n - 0.3)
     n_fail = int((~ok).sum())
-    fig.suptitle(f"hbmodel batch: {n} jobs, {n_fail} failed (grey)", fontsize=9)
-    fig.tight_layout()
+    fig.suptitle(f"hbmodel batch: {n} jobs, {n_fail} failed (grey)", fontsize=9)  # laid out clear of the panels
     return fig
 
 
