@@ -163,19 +163,17 @@ def measure_distance(mag, pop: Population, band: str, *, colour_mags=None, colou
     if mag.size < 50:
         raise ValueError(f"too few stars for a clump fit ({mag.size}; need at least 50)")
     rng = np.random.default_rng(0) if rng is None else rng
-    bump_range = model_bump_offset_range(pop, band)
-    lf = fit_clump_lf(mag, mag_range=mag_range, bump_offset_range=bump_range)
+    lf_kw = dict(mag_range=mag_range, bump_offset_range=model_bump_offset_range(pop, band))
+    lf = fit_clump_lf(mag, **lf_kw)
     if not lf.converged and lf.params.get("bump_ratio", 1.0) <= 1e-3:
         # no RGB bump in the data (e.g. smeared by an age spread): the same fit without that component
         no_bump = fit_clump_lf(mag, mag_range=mag_range, components=("clump", "rgb"))
         if no_bump.converged:
-            lf, bump_range = no_bump, False
+            lf, lf_kw = no_bump, dict(mag_range=mag_range, components=("clump", "rgb"))
     peak_err = float(lf.peak_mag_err)
     if not lf.converged or not np.isfinite(peak_err) or peak_err <= 0:
         # unclean fit or singular Hessian: the curvature error is not trustworthy, use the bootstrap
-        lf = fit_clump_lf(mag, mag_range=mag_range, n_boot=60, rng=np.random.default_rng(rng.integers(2**32)),
-                          bump_offset_range=bump_range or None,
-                          components=("clump", "rgb") if bump_range is False else ("clump", "rgb", "bump"))
+        lf = fit_clump_lf(mag, n_boot=60, rng=np.random.default_rng(rng.integers(2**32)), **lf_kw)
         peak_err = float(lf.peak_mag_err_boot)
     smear = 0.05
     if mag_err is not None:

@@ -35,11 +35,19 @@ FULL_NODES_K = (4250, 4500, 4750, 5000, 5250, 5500, 5772, 6000)
 EDGE_NODES_K = {4000: 4250, 6250: 6000}     # node -> nearest fully-covered node (half its change)
 
 
+#: Colour ranges of the giant relations at [Fe/H] = 0 (the same Table 5).
+GHB09_VALID = {"J": (1.0, 2.4), "H": (0.8, 3.1), "Ks": (1.1, 3.4)}
+
+
 def v_minus(band: str, teff_k: float, feh: float = 0.0) -> float:
-    """V - band of a giant at ``teff_k`` from the relation (root on the increasing branch)."""
-    b0, b1, b2, b3, b4, b5 = GHB09_GIANTS[band]
-    a, b, c = b2, b1 + b3 * feh, b0 + b4 * feh + b5 * feh * feh - 5040.0 / teff_k
-    return float((-b + np.sqrt(b * b - 4.0 * a * c)) / (2.0 * a))
+    """V - band of a giant at ``teff_k`` from the relation (the increasing-branch root used by
+    :mod:`hbmodel.photometry`); ValueError outside the relation's published colour range."""
+    from hbmodel.photometry import _theta_root
+    x = float(_theta_root(GHB09_GIANTS[band], np.array([5040.0 / teff_k]), np.array([float(feh)]))[0])
+    lo, hi = GHB09_VALID[band]
+    if not lo <= x <= hi:
+        raise ValueError(f"V-{band} = {x:.3f} at {teff_k:g} K lies outside the relation's range {lo}-{hi}")
+    return x
 
 
 def rewritten(text: str) -> str:

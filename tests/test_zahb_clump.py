@@ -33,8 +33,7 @@ def zahb_slopes():
 
 
 def test_zahb_mv_local_slopes_near_published_slope(zahb_slopes):
-    # Clementini et al. 2003, AJ 125, 1309: dM_V(RR)/d[Fe/H] = 0.214 +- 0.047 (LMC); Cacciari & Clementini
-    # 2003 (Lecture Notes in Physics 635, 105): slope ~0.2-0.23.  Derivative of the quadratic of Catelan,
+    # Clementini et al. 2003, AJ 125, 1309: dM_V(RR)/d[Fe/H] = 0.214 +- 0.047 (LMC).  Derivative of the quadratic of Catelan,
     # Pritzl & Smith 2004, ApJS 154, 633 (abstract) spans ~0.1-0.35 over -2.2 < [Fe/H] < -0.6.  Every local
     # slope must lie within 0.214 +- 0.12 (the former model had 0.30 / 0.13 / 0.27: a wiggle).
     assert np.all(np.abs(zahb_slopes - 0.214) < 0.12), zahb_slopes
