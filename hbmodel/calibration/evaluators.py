@@ -473,10 +473,21 @@ def pab_feh_slope(row):
 
 # ----------------------------------------------------------------------------- red clump
 def clump_abs_mag(row):
+    """Clump absolute magnitude in the row's band.
+
+    A calibration quoted at a reference colour, ``M = M_ref + slope (colour - colour_ref)`` (conditions
+    ``g_ks=<colour_ref>;slope=<slope>``, e.g. Ruiz-Dern et al. 2018, A&A 609, A116, M_G against G - Ks),
+    is compared at the reference colour: the model's clump is carried along the published slope from its
+    own colour, ``M_model - slope (colour_model - colour_ref)``."""
     c = _cond(row)
+    pop = _population_for(row)
+    m = _clump_mag(pop, row["band"])
     if "g_ks" in c:
-        raise NotModelled("colour-dependent calibration (M_G at a given G-Ks) not modelled")
-    return _clump_mag(_population_for(row), row["band"])
+        if "slope" not in c:
+            raise NotModelled("colour-dependent calibration without its colour slope")
+        colour = _clump_mag(pop, "G") - _clump_mag(pop, "Ks")
+        m -= float(c["slope"]) * (colour - float(c["g_ks"]))
+    return m
 
 
 def clump_colour(row):
