@@ -40,7 +40,7 @@ import numpy as np
 from scipy.special import gammaln, logsumexp, ndtr, xlogy
 
 __all__ = ["COUNT_COLUMNS", "ClusterCounts", "CountsEmulator", "CountsFit", "read_counts", "counts_from_rows",
-           "fit_counts", "hierarchical_eta", "benchmark_counts", "PRIOR_ETA", "PRIOR_ETA_SD", "PRIOR_DELTA_Y"]
+           "fit_counts", "hierarchical_eta", "benchmark_counts", "simulate_counts", "sbc_counts", "PRIOR_ETA", "PRIOR_ETA_SD", "PRIOR_DELTA_Y"]
 
 #: Columns of a counts table: name -> (required, help).  ``hb_ratio_err``, ``pc_mean`` and ``pc_err`` are
 #: hbmodel additions for catalogues that give an HB ratio with an error but no HB count, and RRc periods.
@@ -246,17 +246,15 @@ def read_counts(path) -> list[ClusterCounts]:
 
 # --------------------------------------------------------------------------- emulator
 def _hat_gauss_weights(mu, sd, grid):
-    """E[hat_k(x)] for x ~ N(mu, sd): weights of the grid nodes (linear-interpolation kernel convolved
-    with the Gaussian); rows sum to the Gaussian mass inside the grid.  mu, sd: shape (W,)."""
+    """E[hat_k(x)] for x ~ N(mu, sd): weights of the (uniform) grid nodes -- the linear-interpolation kernel
+    convolved with the Gaussian; rows sum to the Gaussian mass inside the grid.  mu, sd: shape (W,).
+    With G the second antiderivative of the normal density, w_k = (s/d) (G(t_k+1) - 2 G(t_k) + G(t_k-1))."""
     d = grid[1] - grid[0]
     s = np.maximum(np.asarray(sd, float), 1e-4 * d)[:, None]
-    t = (grid[None, :] - np.asarray(mu, float)[:, None]) / s
-
-    def g(x):  # integral of the normal CDF
-        return x * ndtr(x) + np.exp(-0.5 * x * x) / math.sqrt(2 * math.pi)
-
-    h = d / s
-    w = (s / d) * (g(t + h) - 2.0 * g(t) + g(t - h))
+    ext = np.concatenate([[grid[0] - d], grid, [grid[-1] + d]])
+    t = (ext[None, :] - np.asarray(mu, float)[:, None]) / s
+    g = t * ndtr(t) + np.exp(-0.5 * t * t) / math.sqrt(2 * math.pi)
+    w = (s / d) * (g[:, 2:] - 2.0 * g[:, 1:-1] + g[:, :-2])
     return np.clip(w, 0.0, None)
 
 
@@ -339,6 +337,12 @@ class CountsEmulator:
         parts = [(a0, 0, (1 - fa) * (1 - fhe)), (a1, 0, fa * (1 - fhe)),
                  (a0, y0, (1 - fa) * fhe * (1 - fy)), (a0, y1, (1 - fa) * fhe * fy),
                  (a1, y0, fa * fhe * (1 - fy)), (a1, y1, fa * fhe * fy)]
+        A, Y = self.ages.size, self.dys.size
+        # one matrix product over the eta nodes for every (age, dY) node, then the corners picked per row
+        G = (wk @ self.F.transpose(2, 0, 1, 3).reshape(wk.shape[1], -1)).reshape(W, A, Y, _NF)
+        GH = ((wk @ self.H.transpose(2, 0, 1, 3).reshape(wk.shape[1], -1)).reshape(W, A, Y, -1)
+              if hist else None)
+        rows = np.arange(W)
         out = np.zeros((W, _NF))
         h = np.zeros((W, _LOGT_EDGES.size - 1)) if hist else None
         nrgb = np.zeros(W)
@@ -346,9 +350,9 @@ class CountsEmulator:
             if not np.any(c):
                 continue
             iy = np.broadcast_to(iy, (W,))
-            out += c[:, None] * np.einsum("wk,wkf->wf", wk, self.F[ia, iy])
+            out += c[:, None] * G[rows, ia, iy]
             if hist:
-                h += c[:, None] * np.einsum("wk,wkf->wf", wk, self.H[ia, iy])
+                h += c[:, None] * GH[rows, ia, iy]
             nrgb += c * self.n_rgb[ia, iy]
         return out, h, nrgb
 
@@ -522,6 +526,7 @@ class CountsFit:
     acceptance: float
     p_value: float
     warnings: list = field(default_factory=list)
+    eta_sd_fixed: float | None = None
 
     def interval(self, key):
         x = self.samples[:, self.names.index(key)] if key in self.names else self.derived[key]
@@ -541,16 +546,18 @@ class CountsFit:
                 out[k] = iv
         if "age" not in self.names:
             out["age"] = c.age_gyr
+        if self.eta_sd_fixed is not None:
+            out["eta_sd"] = float(self.eta_sd_fixed)
         out.update(converged=bool(self.converged), n_steps=int(self.n_steps), n_eff=float(self.n_eff),
                    tau_max=float(np.max(self.tau)), acceptance=float(self.acceptance), p_value=float(self.p_value),
                    warnings="; ".join(self.warnings))
         return out
 
 
-def _bounds(model, cluster, emu):
+def _bounds(model, cluster, emu, eta_sd_fixed=None):
     b = {"eta": PRIOR_ETA, "eta_sd": PRIOR_ETA_SD, "helium_fraction": PRIOR_HELIUM_FRACTION,
          "delta_y": PRIOR_DELTA_Y}
-    names = list(MODELS[model])
+    names = [n for n in MODELS[model] if not (n == "eta_sd" and eta_sd_fixed is not None)]
     if emu.ages.size > 1:
         names.append("age")
         b["age"] = (float(emu.ages[0]), float(emu.ages[-1]))
@@ -558,8 +565,12 @@ def _bounds(model, cluster, emu):
 
 
 def fit_counts(cluster: ClusterCounts, model="spread", *, n_walkers=32, max_steps=6000, chunk=500, seed=None,
-               n_ppc=400, emulator=None) -> CountsFit:
-    """Sample the posterior of one cluster's mass-loss parameters from its catalogue numbers."""
+               n_ppc=400, emulator=None, eta_sd_fixed=None) -> CountsFit:
+    """Sample the posterior of one cluster's mass-loss parameters from its catalogue numbers.
+
+    ``model``: ``"spread"`` (eta and its star-to-star spread), ``"helium"`` (eta, a helium-enriched
+    fraction and its dY), ``"both"``.  ``eta_sd_fixed``: fix the spread of eta at this value instead of
+    fitting it (for an HB ratio alone, which cannot separate eta from its spread)."""
     import emcee
     if model not in MODELS:
         raise ValueError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
@@ -570,13 +581,15 @@ def fit_counts(cluster: ClusterCounts, model="spread", *, n_walkers=32, max_step
     emu = emulator or CountsEmulator(c.feh, c.alpha_fe, c.age_nodes(), helium=model != "spread",
                                      teff_hist=math.isfinite(c.hb_blue_tail_teff), rgb=math.isfinite(c.n_rgb))
     data = _data_arrays(c)
-    names, bnd = _bounds(model, c, emu)
+    if eta_sd_fixed is not None and not (0.0 <= eta_sd_fixed <= PRIOR_ETA_SD[1]):
+        raise ValueError(f"the fixed spread of eta must lie in [0, {PRIOR_ETA_SD[1]}] (got {eta_sd_fixed})")
+    names, bnd = _bounds(model, c, emu, eta_sd_fixed)
     hist = "tail" in data
     ia = names.index("age") if "age" in names else None
 
     def unpack(x):
         g = dict(zip(names, x.T))
-        return (g["eta"], g.get("eta_sd", 0.0), g.get("helium_fraction", 0.0), g.get("delta_y", 0.0),
+        return (g["eta"], g.get("eta_sd", eta_sd_fixed or 0.0), g.get("helium_fraction", 0.0), g.get("delta_y", 0.0),
                 g.get("age", emu.ages[0]))
 
     def log_post(x):
@@ -632,7 +645,7 @@ def fit_counts(cluster: ClusterCounts, model="spread", *, n_walkers=32, max_step
     ok = np.isfinite(l_obs)
     p_value = float(np.mean(l_rep[ok] <= l_obs[ok])) if ok.any() else float("nan")
     fit = CountsFit(c, model, names, chain, derived, converged, n_done, tau, n_eff,
-                    float(np.mean(sampler.acceptance_fraction)), p_value)
+                    float(np.mean(sampler.acceptance_fraction)), p_value, eta_sd_fixed=eta_sd_fixed)
     fit.warnings.extend(_warnings(fit, data, bnd))
     return fit
 
@@ -742,7 +755,7 @@ def benchmark_counts(role=None, age_sd_default=1.0) -> list[ClusterCounts]:
 # --------------------------------------------------------------------------- a table of clusters
 _SAMPLES = "eta_samples.npy"
 #: keys of a job that are run options, not cluster columns
-_RUN_KEYS = ("model", "max_steps")
+_RUN_KEYS = ("model", "max_steps", "eta_sd_fixed")
 
 
 def _cluster_of_job(job: dict) -> ClusterCounts:
@@ -757,7 +770,8 @@ def counts_task(job: dict, job_dir) -> dict:
 
     from .io import atomic_write_bytes
     c = _cluster_of_job(job)
-    fit = fit_counts(c, job.get("model", "spread"), max_steps=int(job.get("max_steps", 6000)))
+    fit = fit_counts(c, job.get("model", "spread"), max_steps=int(job.get("max_steps", 6000)),
+                     eta_sd_fixed=job.get("eta_sd_fixed"))
     buf = _io.BytesIO()
     eta = fit.samples[:, fit.names.index("eta")]
     np.save(buf, eta[:: max(1, eta.size // 4000)])
@@ -766,7 +780,7 @@ def counts_task(job: dict, job_dir) -> dict:
 
 
 def run_counts_table(clusters, out_dir, *, model="spread", max_steps=6000, n_jobs=1, scheduler=None, force=False,
-                     seed_offset=0, progress=None):
+                     seed_offset=0, progress=None, eta_sd_fixed=None):
     """Fit every cluster (in parallel, resumable: :func:`hbmodel.batch.run_batch`) and return
     ``(summary, hierarchical)``: the batch summary table and :func:`hierarchical_eta` of the finished
     clusters (None with fewer than two)."""
@@ -777,7 +791,7 @@ def run_counts_table(clusters, out_dir, *, model="spread", max_steps=6000, n_job
     for c in clusters:
         job = {k: getattr(c, k) for k in COUNT_COLUMNS if k not in ("age", "age_sd") and hasattr(c, k)}
         job.update(age=c.age_gyr, age_sd=c.age_sd_gyr, seed=int(c.seed) ^ int(seed_offset), model=model,
-                   max_steps=int(max_steps))
+                   max_steps=int(max_steps), eta_sd_fixed=eta_sd_fixed)
         jobs.append({k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in job.items()})
     summary = run_batch([{k: v for k, v in j.items() if v is not None} for j in jobs], counts_task, out_dir,
                         n_jobs=n_jobs, scheduler=scheduler, progress=progress, force=force, input_keys=())
@@ -843,3 +857,50 @@ def results_table(summary, hierarchical=None):
         t.meta["population_eta_mean"] = hierarchical["mu"]
         t.meta["population_eta_scatter"] = hierarchical["tau"]
     return t
+
+
+# --------------------------------------------------------------------------- simulation-based calibration
+def simulate_counts(name, feh, eta, eta_sd, rng, *, n_hb=150, age_gyr=12.5, alpha_fe=0.3, pab_err=0.01):
+    """Mock catalogue numbers of a cluster from ``Population.predict`` (not the emulator): the HB count is
+    Poisson(n_hb), B:V:R multinomial with the predicted fractions, the mean RRab period Gaussian with the
+    likelihood's error.  Returns a :class:`ClusterCounts`, or None when no star reaches the HB."""
+    from .calibration.scorecard import sigma_model
+    from .population import MassLoss, Population
+    p = Population(feh, age_gyr, alpha_fe=alpha_fe, mass_loss=MassLoss.from_eta(eta, eta_sd)).predict(bands=("V",))
+    if p.get("fraction_blue") is None:
+        return None
+    f = np.clip([p["fraction_blue"], p["fraction_rr"], p["fraction_red"]], 0, 1)
+    n = max(int(rng.poisson(n_hb)), 1)
+    b, v, r = rng.multinomial(n, f / f.sum())
+    kw = dict(n_blue=b, n_var=v, n_red=r)
+    if v >= 5 and p.get("rrab_period_mean") is not None:
+        sd = math.hypot(pab_err, sigma_model("rrab_period_mean"))
+        kw.update(pab_mean=float(np.clip(p["rrab_period_mean"] + sd * rng.standard_normal(), 0.15, 1.2)),
+                  pab_err=pab_err)
+    return ClusterCounts(name, feh, alpha_fe=alpha_fe, age_gyr=age_gyr, seed=int(rng.integers(2 ** 31)), **kw)
+
+
+def _sbc_one(i, seed, n_hb, eta_range, sd_range, feh_range, max_steps):
+    rng = np.random.default_rng([seed, i])
+    for _ in range(20):  # a draw whose HB is empty (all envelopes lost) is redrawn
+        eta, sd, feh = rng.uniform(*eta_range), rng.uniform(*sd_range), rng.uniform(*feh_range)
+        c = simulate_counts(f"sbc-{i}", feh, eta, sd, rng, n_hb=n_hb)
+        if c is not None:
+            break
+    fit = fit_counts(c, "spread", max_steps=max_steps)
+    out = {"eta_true": eta, "eta_sd_true": sd, "feh": feh, "converged": fit.converged}
+    for k, truth in (("eta", eta), ("eta_sd", sd)):
+        x = fit.samples[:, fit.names.index(k)]
+        out[f"{k}_rank"] = float(np.mean(x < truth))  # posterior quantile of the truth (Talts et al. 2018)
+    return out
+
+
+def sbc_counts(n_draws, *, seed=0, n_hb=150, eta_range=(0.25, 0.75), sd_range=(0.0, 0.12),
+               feh_range=(-2.2, -1.0), max_steps=4000, n_jobs=1) -> list[dict]:
+    """Simulation-based calibration (Talts et al. 2018, arXiv:1804.06788): inject (eta, sigma_eta, [Fe/H])
+    drawn uniformly inside the fit's prior, mock the counts with :func:`simulate_counts`, fit, and return
+    each draw's posterior quantile of the truth (``<par>_rank``; the truth lies in the 68 % interval when
+    0.16 <= rank <= 0.84)."""
+    import joblib
+    return joblib.Parallel(n_jobs=n_jobs)(
+        joblib.delayed(_sbc_one)(i, seed, n_hb, eta_range, sd_range, feh_range, max_steps) for i in range(n_draws))

@@ -19,6 +19,9 @@ def add_counts_arguments(p):
     g.add_argument("--counts", default=None, metavar="FILE", help=COUNTS_HELP)
     g.add_argument("--jobs", type=int, default=1, help="parallel workers for --counts (joblib), default 1")
     g.add_argument("--scheduler", default=None, help="Dask scheduler address for --counts, e.g. tcp://host:8786")
+    g.add_argument("--counts-eta-sd", type=float, default=None, metavar="SD",
+                   help="fix the star-to-star spread of eta at SD (default: fitted, uniform prior 0-0.25); "
+                        "an HB ratio alone cannot separate eta from its spread")
     g.add_argument("--table-format", choices=_TABLE_FORMATS, default="ecsv",
                    help="format of the --counts results table in --out (default ecsv)")
     for a in p._actions:
@@ -58,6 +61,8 @@ def run_counts(args) -> int:
         raise ValueError("--jobs must be at least 1")
     if args.max_steps < 100:
         raise ValueError("--max-steps must be at least 100")
+    if args.counts_eta_sd is not None and not (math.isfinite(args.counts_eta_sd) and 0 <= args.counts_eta_sd <= 0.25):
+        raise ValueError(f"--counts-eta-sd must lie in [0, 0.25] (got {args.counts_eta_sd:g})")
     if args.sampler != "emcee":
         raise ValueError("--counts samples with emcee only (its posteriors are far from Gaussian)")
     clusters = read_counts(args.counts)
@@ -72,7 +77,8 @@ def run_counts(args) -> int:
         out = pathlib.Path(args.out)
         table_path = out / f"counts_results.{args.table_format}"
         summary, hier = run_counts_table(clusters, out, model=args.model, max_steps=args.max_steps, n_jobs=args.jobs,
-                                         scheduler=args.scheduler, force=args.force, seed_offset=args.seed)
+                                         scheduler=args.scheduler, force=args.force, seed_offset=args.seed,
+                                         eta_sd_fixed=args.counts_eta_sd)
         table = results_table(summary, hier)
         if len(table):
             write_table(table, table_path, force=True)  # the run's own product: rewritten on a resumed run
@@ -87,7 +93,8 @@ def run_counts(args) -> int:
     else:
         import joblib
         fits = joblib.Parallel(n_jobs=args.jobs)(
-            joblib.delayed(fit_counts)(c, args.model, max_steps=args.max_steps, seed=int(c.seed) ^ int(args.seed))
+            joblib.delayed(fit_counts)(c, args.model, max_steps=args.max_steps, seed=int(c.seed) ^ int(args.seed),
+                                       eta_sd_fixed=args.counts_eta_sd)
             for c in clusters)
         results = [{"name": f.cluster.name, **f.summary()} for f in fits]
         failed = []
