@@ -269,7 +269,7 @@ class CountsEmulator:
     the ZAHB at the strip per unit birth rate (only when ``rgb``: one ``predict`` per node).
     """
 
-    def __init__(self, feh, alpha_fe, ages_gyr, *, helium=False, teff_hist=False, rgb=False, n_tau=48):
+    def __init__(self, feh, alpha_fe, ages_gyr, *, helium=False, teff_hist=False, rgb=False, n_tau=96):
         from .morphology import hb_classes
         from .population import MassLoss, Population
         self.feh, self.alpha_fe = float(feh), float(alpha_fe)
