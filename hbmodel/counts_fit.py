@@ -554,9 +554,14 @@ class CountsFit:
         return out
 
 
-def _bounds(model, cluster, emu, eta_sd_fixed=None):
+def _bounds(model, cluster, emu, eta_sd_fixed=None, priors=None):
     b = {"eta": PRIOR_ETA, "eta_sd": PRIOR_ETA_SD, "helium_fraction": PRIOR_HELIUM_FRACTION,
          "delta_y": PRIOR_DELTA_Y}
+    for k, v in (priors or {}).items():
+        lo, hi = (float(x) for x in v)
+        if k not in b or not b[k][0] <= lo < hi <= b[k][1]:
+            raise ValueError(f"prior {k!r} = ({lo:g}, {hi:g}) must be an interval inside {b.get(k, 'a known parameter')}")
+        b[k] = (lo, hi)
     names = [n for n in MODELS[model] if not (n == "eta_sd" and eta_sd_fixed is not None)]
     if emu.ages.size > 1:
         names.append("age")
@@ -565,12 +570,13 @@ def _bounds(model, cluster, emu, eta_sd_fixed=None):
 
 
 def fit_counts(cluster: ClusterCounts, model="spread", *, n_walkers=32, max_steps=6000, chunk=500, seed=None,
-               n_ppc=400, emulator=None, eta_sd_fixed=None) -> CountsFit:
+               n_ppc=400, emulator=None, eta_sd_fixed=None, priors=None) -> CountsFit:
     """Sample the posterior of one cluster's mass-loss parameters from its catalogue numbers.
 
     ``model``: ``"spread"`` (eta and its star-to-star spread), ``"helium"`` (eta, a helium-enriched
     fraction and its dY), ``"both"``.  ``eta_sd_fixed``: fix the spread of eta at this value instead of
-    fitting it (for an HB ratio alone, which cannot separate eta from its spread)."""
+    fitting it (for an HB ratio alone, which cannot separate eta from its spread).  ``priors``: narrower
+    uniform priors, e.g. ``{"eta_sd": (0.0, 0.1)}`` (default: :data:`PRIOR_ETA`, :data:`PRIOR_ETA_SD`, ...)."""
     import emcee
     if model not in MODELS:
         raise ValueError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
@@ -583,7 +589,7 @@ def fit_counts(cluster: ClusterCounts, model="spread", *, n_walkers=32, max_step
     data = _data_arrays(c)
     if eta_sd_fixed is not None and not (0.0 <= eta_sd_fixed <= PRIOR_ETA_SD[1]):
         raise ValueError(f"the fixed spread of eta must lie in [0, {PRIOR_ETA_SD[1]}] (got {eta_sd_fixed})")
-    names, bnd = _bounds(model, c, emu, eta_sd_fixed)
+    names, bnd = _bounds(model, c, emu, eta_sd_fixed, priors)
     hist = "tail" in data
     ia = names.index("age") if "age" in names else None
 
@@ -887,7 +893,7 @@ def _sbc_one(i, seed, n_hb, eta_range, sd_range, feh_range, max_steps):
         c = simulate_counts(f"sbc-{i}", feh, eta, sd, rng, n_hb=n_hb)
         if c is not None:
             break
-    fit = fit_counts(c, "spread", max_steps=max_steps)
+    fit = fit_counts(c, "spread", max_steps=max_steps, priors={"eta": eta_range, "eta_sd": sd_range})
     out = {"eta_true": eta, "eta_sd_true": sd, "feh": feh, "converged": fit.converged}
     for k, truth in (("eta", eta), ("eta_sd", sd)):
         x = fit.samples[:, fit.names.index(k)]
@@ -898,7 +904,7 @@ def _sbc_one(i, seed, n_hb, eta_range, sd_range, feh_range, max_steps):
 def sbc_counts(n_draws, *, seed=0, n_hb=150, eta_range=(0.25, 0.75), sd_range=(0.0, 0.12),
                feh_range=(-2.2, -1.0), max_steps=4000, n_jobs=1) -> list[dict]:
     """Simulation-based calibration (Talts et al. 2018, arXiv:1804.06788): inject (eta, sigma_eta, [Fe/H])
-    drawn uniformly inside the fit's prior, mock the counts with :func:`simulate_counts`, fit, and return
+    drawn uniformly from ``eta_range`` x ``sd_range`` (the priors of the fits, as SBC requires), mock the counts with :func:`simulate_counts`, fit, and return
     each draw's posterior quantile of the truth (``<par>_rank``; the truth lies in the 68 % interval when
     0.16 <= rank <= 0.84)."""
     import joblib

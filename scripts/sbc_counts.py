@@ -1,7 +1,7 @@
 """Simulation-based calibration of ``hbmodel fit --counts`` (Talts et al. 2018, arXiv:1804.06788).
 
-Injects (eta, sigma_eta, [Fe/H]) drawn uniformly inside the fit's prior (eta 0.25-0.75, sigma_eta 0-0.12,
-[Fe/H] -2.2...-1.0, age 12.5 Gyr), computes the HB fractions and mean RRab period with
+Injects (eta, sigma_eta, [Fe/H]) drawn uniformly (eta 0.25-0.75, sigma_eta 0-0.12, [Fe/H] -2.2...-1.0,
+age 12.5 Gyr) and fits with those uniform ranges as the priors (SBC needs the truth drawn from the prior), computes the HB fractions and mean RRab period with
 ``Population.predict`` (not the fit's emulator), draws the catalogue numbers (HB count Poisson(N_HB),
 B:V:R multinomial, period Gaussian), fits them and prints how often the 68 % and 95 % intervals hold the
 truth (target: 60-76 % of >= 100 draws for 68 %) and the rank histogram of the truth.
