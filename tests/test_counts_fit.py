@@ -186,3 +186,22 @@ def test_simulation_based_calibration_of_the_intervals():
     cover = np.mean((rank >= 0.16) & (rank <= 0.84))
     assert abs(cover - 0.68) <= 3 * math.sqrt(0.68 * 0.32 / rank.size)
     assert kstest(rank, "uniform").pvalue > 1e-3
+
+
+@pytest.mark.slow
+def test_benchmark_population_eta_agrees_with_mcdonald_zijlstra_2015(tmp_path):
+    """The held-out (check) globular clusters of tables/targets/clusters.ecsv through the counts path, eta
+    spread fixed at the benchmark's 0.045: the population mean Reimers eta within 2 sigma of McDonald &
+    Zijlstra 2015, MNRAS 448, 502 (abstract, read: median 0.477 among 56 GCs, systematic +0.050/-0.062;
+    sigma = that systematic and our interval in quadrature), and the scatter among clusters within 2 sigma
+    of their standard deviation 0.070."""
+    from hbmodel.counts_fit import benchmark_counts, run_counts_table
+    clusters = benchmark_counts(role="check")
+    assert len(clusters) >= 10
+    summary, hier = run_counts_table(clusters, tmp_path / "bench", eta_sd_fixed=0.045, max_steps=3000,
+                                     progress=False)
+    assert np.all(np.asarray(summary["status"]).astype(str) == "done")
+    mu, tau = hier["mu"], hier["tau"]
+    sig_mu = math.hypot(0.5 * (mu["hi"] - mu["lo"]), 0.062 if mu["median"] < 0.477 else 0.050)
+    assert abs(mu["median"] - 0.477) < 2 * sig_mu, mu
+    assert abs(tau["median"] - 0.070) < 2 * 0.5 * (tau["hi"] - tau["lo"]) + 0.01, tau
