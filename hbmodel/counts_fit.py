@@ -187,6 +187,11 @@ def _as_float(v):
     return as_float(v)
 
 
+def _as_int(v):
+    from .batch import as_int
+    return as_int(v)
+
+
 def counts_from_rows(rows, where="counts table") -> list[ClusterCounts]:
     """:class:`ClusterCounts` from dicts (one per cluster); unknown keys are an error naming the nearest."""
     from .batch import job_seed
@@ -207,11 +212,11 @@ def counts_from_rows(rows, where="counts table") -> list[ClusterCounts]:
             if isinstance(v, float) and math.isnan(v):
                 continue
             try:
-                val = _as_float(v)
+                val = _as_int(v) if k == "seed" else _as_float(v)
             except ValueError as exc:
                 raise ValueError(f"{where}, row {i + 1} ({name!r}), column {k!r}: {exc}") from None
             key = {"age": "age_gyr", "age_sd": "age_sd_gyr"}.get(k, k)
-            kw[key] = int(val) if k == "seed" else val
+            kw[key] = val
         if "feh" not in kw:
             raise ValueError(f"{where}, row {i + 1} ({name!r}): feh is missing")
         kw.setdefault("seed", job_seed(name))
@@ -670,7 +675,12 @@ def _warnings(fit: CountsFit, data, bnd) -> list[str]:
     else:
         tol = 1.0 / c.n_hb if math.isfinite(c.n_hb) else c.hb_ratio_err
         top, bottom = c.hb_ratio >= 1.0 - tol, c.hb_ratio <= -1.0 + tol
-    eta = fit.samples[:, fit.names.index("eta")]
+    i = fit.names.index("eta")
+    eta = fit.samples[:, i]
+    lo, hi = bnd[i]
+    # ... and the posterior open towards the prior bound (RR Lyrae data may still close it)
+    top = top and np.percentile(eta, 97.5) > hi - 0.1 * (hi - lo)
+    bottom = bottom and np.percentile(eta, 2.5) < lo + 0.1 * (hi - lo)
     if top:
         w.append(f"HB ratio saturated at +1: only a lower limit on eta (eta > {np.percentile(eta, 5):.2f} at 95 %)")
     elif bottom:
@@ -691,11 +701,11 @@ def _warnings(fit: CountsFit, data, bnd) -> list[str]:
 
 
 # --------------------------------------------------------------------------- many clusters
-def hierarchical_eta(samples, *, mu_range=(0.0, 1.5), tau_range=(0.005, 0.5), n_grid=(301, 200), prior=PRIOR_ETA,
-                     max_draws=1000, rng=None) -> dict:
+def hierarchical_eta(samples, *, mu_range=(0.0, 1.5), tau_range=(0.005, 0.5), n_grid=(301, 200), max_draws=1000,
+                     rng=None) -> dict:
     """Population mean and scatter of eta across clusters by importance reweighting.
 
-    ``samples``: list of 1-D arrays of per-cluster eta draws under a flat prior on ``prior``.  The
+    ``samples``: list of 1-D arrays of per-cluster eta draws under a flat prior (:data:`PRIOR_ETA`).  The
     population is eta_c ~ N(mu, tau); the likelihood of (mu, tau) is prod_c mean_s N(eta_cs; mu, tau) /
     p_flat (Hogg, Myers & Bovy 2010, ApJ 725, 2166, eq. 9), evaluated on a grid with flat priors on mu and
     tau.  Returns {"mu": interval, "tau": interval, "n_clusters": n} with 16/50/84 % points of the marginals.
