@@ -46,6 +46,40 @@ def test_emulator_follows_the_second_parameter_of_age():
     assert ratio[0] <= mid <= ratio[1]
 
 
+def test_emulator_r_parameter_and_blue_tail_match_the_model():
+    """R = N_HB/N_RGB (Iben 1968, Nature 220, 143; Buzzoni et al. 1983) from predict within 1 %, and the
+    99th percentile of the HB-time distribution of log Teff (the hottest of ~100 HB stars) within 2 %."""
+    from hbmodel.counts_fit import _blue_tail_logteff
+    from hbmodel.morphology import weighted_quantile
+    emu = CountsEmulator(-1.5, 0.3, [12.5], teff_hist=True, rgb=True)
+    for eta in (0.45, 0.6):
+        o = emu.observables(eta, 0.03, hist=True)
+        pop = Population(-1.5, 12.5, alpha_fe=0.3, mass_loss=MassLoss.from_eta(eta, 0.03))
+        assert o["r_parameter"][0] == pytest.approx(pop.predict(bands=("V",))["r_parameter"], rel=0.01)
+        st = pop.model_stars()
+        hb = st.phase == "hb"
+        t99 = 10 ** weighted_quantile(st.logteff[hb], st.weight[hb], 0.99)
+        assert 10 ** _blue_tail_logteff(o["logteff_hist"], 0.99)[0] == pytest.approx(t99, rel=0.02)
+
+
+def test_r_parameter_and_blue_tail_enter_the_fit():
+    """An HB ratio alone at [Fe/H] -1.5 leaves eta and its spread degenerate; the hottest HB star (the extent
+    of the blue tail) breaks the degeneracy: the fit with it recovers the injected eta = 0.60."""
+    from hbmodel.counts_fit import _blue_tail_logteff
+    emu = CountsEmulator(-1.5, 0.3, [12.5], teff_hist=True, rgb=True)
+    o = emu.observables(0.60, 0.03, hist=True)
+    n_hb = 300
+    tail = float(10 ** _blue_tail_logteff(o["logteff_hist"], 1 - 1 / (n_hb + 1))[0])
+    c = ClusterCounts("Sandpiper-2", -1.5, hb_ratio=round(float(o["hb_ratio"][0]), 2), n_hb=n_hb,
+                      n_rgb=round(n_hb / float(o["r_parameter"][0])), hb_blue_tail_teff=tail, seed=2)
+    fit = fit_counts(c, max_steps=3000, emulator=emu)
+    eta = fit.samples[:, fit.names.index("eta")]
+    assert abs(np.median(eta) - 0.60) < 2.5 * np.std(eta)
+    alone = fit_counts(ClusterCounts("Sandpiper-2", -1.5, hb_ratio=c.hb_ratio, n_hb=n_hb, seed=2), max_steps=3000,
+                       emulator=emu)
+    assert np.std(eta) < np.std(alone.samples[:, 0]) / 3
+
+
 # --------------------------------------------------------------------------- likelihood
 def test_exact_hb_ratio_likelihood_matches_the_multinomial():
     """P(B - R = d) summed from the multinomial pmf of scipy (reference library) for n = 7."""

@@ -105,7 +105,7 @@ def run_counts(args) -> int:
                                                      for r in failed],
                      "population_eta": hier}))
         return 1 if failed else 0
-    print(f"hbmodel fit --counts: {len(clusters)} clusters, model {args.model}")
+    print(f"hbmodel fit --counts: {len(clusters)} cluster{'s' if len(clusters) != 1 else ''}, model {args.model}")
     for r in results:
         parts = [f"eta {format_interval(r['eta'])}"] if isinstance(r.get("eta"), dict) else []
         for k in ("eta_sd", "helium_fraction", "delta_y"):
