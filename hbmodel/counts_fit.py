@@ -372,7 +372,7 @@ class CountsEmulator:
         age = self.ages[self.ages.size // 2] if age_gyr is None else age_gyr
         eta = np.atleast_1d(np.asarray(eta, float))
         args = [np.broadcast_to(np.asarray(v, float), eta.shape) for v in (eta, eta_sd, helium_fraction, delta_y, age)]
-        step = 1024  # bounded memory: the gathered tables are (rows, eta nodes, features)
+        step = 1024  # bounded memory: the eta weights are (rows, eta nodes)
         parts = [self.evaluate(*(a[i:i + step] for a in args), hist) for i in range(0, eta.size, step)]
         f = np.concatenate([p[0] for p in parts])
         h = np.concatenate([p[1] for p in parts]) if hist else None
