@@ -125,6 +125,7 @@ def test_saturated_blue_hb_gives_a_lower_limit_and_says_so():
     assert np.percentile(red.samples[:, 0], 95) < 0.45
 
 
+@pytest.mark.slow
 def test_helium_model_prefers_enrichment_for_a_blue_tail_of_a_red_hb():
     """A red HB with a separate blue component (bimodal HB at fixed eta) is the classic signature of a
     helium-enriched fraction (D'Antona & Caloi 2004, ApJ 611, 871): the helium model finds f_He > 0."""
