@@ -23,12 +23,12 @@ probability of B - R under the multinomial (a sum over R); binomial for the RRc 
 for N_HB among N_HB + N_RGB; Gaussian for the mean periods (with the surrogate's stated accuracy,
 ``tables/targets/model_accuracy.csv``, added in quadrature) and for log Teff of the hottest HB star.
 Sampling with emcee (Foreman-Mackey et al. 2013, PASP 125, 306), convergence at 50 autocorrelation
-times; goodness of fit by a posterior-predictive check (Gelman, Meng & Stern 1996, Stat. Sin. 6, 733)
-of the deviance.
+times; goodness of fit by a posterior-predictive check (Gelman, Meng & Stern 1996, Stat. Sin. 6, 733;
+reference recalled from memory) of the deviance.
 
 Hierarchical summary (:func:`hierarchical_eta`): the population mean and scatter of eta across
 clusters, from the per-cluster posterior samples (drawn under a flat eta prior) by importance
-reweighting (e.g. Hogg, Myers & Bovy 2010, ApJ 725, 2166, eq. 9).
+reweighting (e.g. Hogg, Myers & Bovy 2010, ApJ 725, 2166, eq. 9; reference recalled from memory).
 """
 from __future__ import annotations
 
