@@ -12,6 +12,7 @@ examples:
   hbmodel fit cluster.ecsv --bands V,I --feh -1.6 --alpha-fe 0.3 --age 12.5 --age-sd 1 \\
       --distance-modulus 15.0 --dm-sd 0.05 --ebv 0.05 --ebv-sd 0.01 --out result/ --json
   hbmodel fit --masses giants.csv --feh 0.3 --age 8 --age-sd 1 --json
+  hbmodel fit --counts clusters.csv --out counts_out/ --jobs 2
 """
 
 
@@ -48,6 +49,8 @@ def add_arguments(p):
     p.add_argument("--out", default=None, metavar="DIR", help="write result.json, posterior.ecsv and plots")
     p.add_argument("--force", action="store_true", help="allow writing into a non-empty --out directory")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    from .fit_counts import add_counts_arguments
+    add_counts_arguments(p)  # --counts FILE: eta from catalogue numbers (makes --feh/--age optional)
 
 
 def _columns(text):
@@ -70,7 +73,10 @@ def run(args):
     from ..quantities import unit_of
     from ..reports import format_interval
     from ._common import canonical_columns, colour_of, dumps, parse_floats
-
+    from .fit_counts import require_population, run_counts
+    if args.counts is not None:
+        return run_counts(args)
+    require_population(args)
     bands = parse_bands(args.bands, "--bands", n=2)
     colour = colour_of(args.color, bands)
     args.bands, args.color = ",".join(bands), ("-".join(colour) if colour else None)  # canonical in the record
