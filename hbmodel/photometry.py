@@ -126,14 +126,17 @@ def _band_lookup() -> dict[str, str]:
 def _nearest_band(name: str) -> str:
     """The known band nearest to an unknown ``name``: by spelling, else (HST-style F606W names) by wavelength."""
     lookup = _band_lookup()
-    close = difflib.get_close_matches(name.casefold(), list(lookup), n=1, cutoff=0.6)
-    if close:
-        return lookup[close[0]]
     m = re.search(r"F(\d{3,4})[WMNLPX]", name.upper())
     if m:  # HST convention: F606W = 606 nm; three-digit numbers below 200 are IR, F160W = 1.60 micron
         num = int(m.group(1))
         lam_um = num / 100.0 if num < 200 else num / 1000.0
-        return min(_registry().values(), key=lambda b: abs(math.log(b.lambda_eff_um / lam_um))).name
+        hst = [b for b in _registry().values() if b.system.startswith("HST")]
+        same = [b for b in hst if name.upper().startswith(b.name.split("_")[0] + "_")]
+        pool = same or hst or list(_registry().values())
+        return min(pool, key=lambda b: abs(math.log(b.lambda_eff_um / lam_um))).name
+    close = difflib.get_close_matches(name.casefold(), list(lookup), n=1, cutoff=0.6)
+    if close:
+        return lookup[close[0]]
     return lookup[difflib.get_close_matches(name.casefold(), list(lookup), n=1, cutoff=0.0)[0]]
 
 
