@@ -219,10 +219,29 @@ class BandRelation:
     source: str
     location: str
     obtained: str
+    sequence: tuple | None = None   # (x nodes, y nodes): piecewise-linear term in x (band_colour_sequences.csv)
 
     def validity(self) -> str:
         hot = f", Teff <= {self.teff_max_k:,.0f} K" if self.teff_max_k < TEFF_RANGE_K[1] else ""
         return f"{self.va}-{self.vb} in [{self.v_lo:g}, {self.v_hi:g}] mag{hot}"
+
+
+@table_cache
+def _sequences() -> dict[str, tuple]:
+    text = _text("band_colour_sequences.csv")
+    rows = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    seqs: dict[str, list] = {}
+    for r in csv.DictReader(io.StringIO("\n".join(rows))):
+        seqs.setdefault(r["sequence"].strip(), []).append((float(r["x"]), float(r["y"])))
+    out = {}
+    for name, pts in seqs.items():
+        x, y = (np.array(v, dtype=float) for v in zip(*pts))
+        if np.any(np.diff(x) <= 0):
+            raise ValueError(f"band_colour_sequences.csv: sequence {name} is not increasing in x")
+        x.setflags(write=False)
+        y.setflags(write=False)
+        out[name] = (x, y)
+    return out
 
 
 @table_cache
@@ -241,10 +260,16 @@ def _relations() -> dict[str, BandRelation]:
         for n in names:
             if n not in reg:
                 raise ValueError(f"band_relations.csv: relation of {band} uses unknown band {n!r}")
+        seq_name = (r.get("sequence") or "").strip()
+        seq = None
+        if seq_name:
+            if seq_name not in _sequences():
+                raise ValueError(f"band_relations.csv: relation of {band} names unknown sequence {seq_name!r}")
+            seq = _sequences()[seq_name]
         out[band] = BandRelation(band, names[0], names[1], names[2],
                                  tuple(float(r[f"c{k}"]) for k in range(3)), names[3], names[4],
                                  float(r["v_lo"]), float(r["v_hi"]), float(r["teff_max_k"]),
-                                 r["source"].strip(), r["location"].strip(), r["obtained"].strip())
+                                 r["source"].strip(), r["location"].strip(), r["obtained"].strip(), seq)
     return out
 
 
@@ -301,6 +326,8 @@ def _apply_relations(m: dict, order: list, teff, check: bool) -> None:
             r = rels[b]
             x = m[r.xa] - m[r.xb]
             new = m[r.base] + r.coef[0] + x * (r.coef[1] + r.coef[2] * x)
+            if r.sequence is not None:
+                new = new + np.interp(x, *r.sequence)
             if new.size:
                 delta = max(delta, float(np.nanmax(np.abs(new - m[b]), initial=0.0)))
             m[b] = new
