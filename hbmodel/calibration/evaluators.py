@@ -205,11 +205,17 @@ def _stars_cached(cp, key):
 
 
 def _clump_mag(pop, band):
-    if band not in _bands():
-        raise NotModelled(f"band {band} is not in hbmodel's band set")
+    from ..photometry import resolve_band
+    try:
+        band = resolve_band(band)     # aliases too: a row's 'W1' is the registry's WISE_W1
+    except ValueError:
+        raise NotModelled(f"band {band} is not in hbmodel's band set") from None
     if isinstance(pop, _Cached) and band not in TARGET_BANDS:
         pop = pop.build()
-    p = pop.predict(bands=(band,))
+    try:
+        p = pop.predict(bands=(band,))
+    except ValueError as exc:         # a relation band refusing stars outside its published relation
+        raise NotModelled(str(exc)) from None
     if p.get("clump_absmag") is None:
         raise NotModelled("no red-HB / clump stars in the model population")
     return float(p["clump_absmag"][band])
