@@ -41,7 +41,16 @@ Construction (each step names its published source; see the table headers):
    -0.5 < BP-RP < 2.75, extrapolated beyond, i.e. for the coolest M stars), and the
    split of BP-RP into BP and RP from the expected flux-excess factor
    C* = (I_BP + I_RP)/I_G and the EDR3 Vega zero points (Riello et al. 2021).
-5. **Solar reference** on the IAU 2015 bolometric scale (Resolution B2,
+5. **HST and survey bands** (``colour_source = relation`` in ``tables/bands.csv``): the magnitude
+   comes from the band's published colour relation in ``tables/band_relations.csv``,
+   ``m = m_base + c0 + c1 x + c2 x^2 (+ a tabulated sequence term)``, x a colour of bands computed
+   before (or of the band's own system, solved by fixed-point iteration): SDSS from UBVRcIc (Jester et
+   al. 2005, AJ 130, 873, Table 1), DECam from SDSS (DES DR2, Abbott et al. 2021), PS1 from SDSS (Tonry
+   et al. 2012, ApJ 750, 99, Table 6; memory), WISE from the Pecaut & Mamajek 2013 dwarf sequence.
+   Each relation is applied only inside its published colour range (and Teff limit): outside, or for a
+   band with no tabulated relation (HST, LSST for now), a ``ValueError`` -- never an extrapolation.
+   These bands are not in the default set ``BAND_NAMES``; ``ALL_BAND_NAMES`` lists every band.
+6. **Solar reference** on the IAU 2015 bolometric scale (Resolution B2,
    Prsa et al. 2016, AJ 152, 41): ``M_BOL_SUN = 4.74``.
 
 Limitations: U-B (Balmer jump) and G-V are *not* monotonic in Teff -- by physics,
