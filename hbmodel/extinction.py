@@ -24,10 +24,23 @@ is a few per cent smaller for cool stars than for hot ones).  The ratios are
 precomputed on a grid of 2001 Teff values (3,000-50,000 K, uniform in log Teff)
 per (band, law, R_V) and linearly interpolated, so the functions are vectorised.
 
-Limitations: blackbody spectra (no line blanketing or Balmer jump), approximate
-passbands, and the linear (small A_V) limit -- the band-integrated ratio of a broad
-band decreases slightly with the amount of extinction, by ~1-2 % per magnitude of
-A_V in G (not modelled).
+Real passbands and the curvature in A_V.  The HST and survey bands of the registry
+(``passband`` column of ``tables/bands.csv``) use their real response curves: survey curves
+shipped with the ``speclite`` package (read from its installed data, no download), HST curves
+tabulated in ``tables/passbands_hst.csv``.  For these bands the band-integrated extinction is
+computed exactly for the amount of dust,
+
+    A_band = -2.5 log10( int F_lambda lambda S 10^(-0.4 A_V k) dlambda / int F_lambda lambda S dlambda ),
+
+tabulated on a (Teff, A_V) grid (A_V = R_V E(B-V) from 0 to 30 mag, step 0.5; bilinear), so the ratio
+A_band/E(B-V) falls with A_V as the passband's blue side is extinguished first (~1-2 % per
+magnitude of A_V for a broad optical band): :func:`extinction_ratio` with ``ebv`` and
+:func:`extinction_mag` include it.  Without ``ebv`` the low-extinction limit is returned.
+
+Limitations: blackbody spectra (no line blanketing or Balmer jump); the eleven core bands keep their
+approximate passbands and the linear (small A_V) limit, so that their numbers are unchanged (their
+curvature, ~1-2 % per magnitude of A_V in G, is not modelled); WISE W1/W2 lie beyond 3.3 micron, outside
+F99 and CCM89: use ``G23``.
 """
 from __future__ import annotations
 
@@ -80,8 +93,40 @@ def _planck_photons(lam_um, teff_k):
     return lam_um ** -4 / np.expm1(_C2_UM_K / (lam_um * teff_k))
 
 
+@functools.lru_cache(maxsize=64)
+def _curve(source: str, name: str) -> tuple[np.ndarray, np.ndarray]:
+    """Real response curve (micron, response) of a registry band: ``speclite:<filter>`` or ``table``."""
+    if source.startswith("speclite:"):
+        try:
+            import speclite.filters as sf
+        except ImportError:
+            raise ValueError(f"band {name} needs the speclite package for its passband (pip install speclite)") from None
+        f = sf.load_filter(source.split(":", 1)[1])
+        lam, resp = np.asarray(f.wavelength, float) / 1e4, np.asarray(f.response, float)
+    elif source == "table":
+        from ._tables import _text
+        lam, resp = [], []
+        for ln in _text("passbands_hst.csv").splitlines():
+            parts = ln.split(",")
+            if len(parts) == 3 and parts[0] == name:
+                lam.append(float(parts[1]))
+                resp.append(float(parts[2]))
+        if not lam:
+            raise ValueError(f"band {name}: no curve in passbands_hst.csv")
+        lam, resp = np.array(lam), np.array(resp)
+    else:
+        raise ValueError(f"band {name} has unknown passband source {source!r}")
+    keep = np.flatnonzero(resp > 0)
+    lo, hi = lam[max(keep[0] - 1, 0)], lam[min(keep[-1] + 1, lam.size - 1)]
+    grid = np.linspace(lo, hi, _NLAM)
+    return grid, np.interp(grid, lam, resp)
+
+
 def passband(band) -> tuple[np.ndarray, np.ndarray]:
-    """Approximate passband of ``band``: wavelength grid (micron) and relative response.
+    """Passband of ``band``: wavelength grid (micron) and relative response.
+
+    Bands with a real curve (``passband`` column of ``bands.csv``) return it, resampled onto
+    600 equally spaced wavelengths; the eleven core bands return the approximate shape below.
 
     Shape and width from the registry (Gaussian of FWHM = lambda_hi - lambda_lo, or a
     top-hat of that width); the band is then placed so that its photon-weighted mean
@@ -89,6 +134,8 @@ def passband(band) -> tuple[np.ndarray, np.ndarray]:
     effective wavelength ``lambda_eff_um``.
     """
     b = get_band(band) if isinstance(band, str) else band
+    if b.passband != "approx":
+        return _curve(b.passband, b.name)
     lo, hi = b.lambda_lo_um, b.lambda_hi_um
     if b.shape == "gaussian":
         sigma = (hi - lo) / (2.0 * np.sqrt(2.0 * np.log(2.0)))
@@ -131,21 +178,74 @@ def _ratio_grid(band_name: str, law: str, rv: float) -> _Uniform:
     return _Uniform(lo, hi, _NGRID, {"r": ratio})
 
 
-def extinction_ratio(band, teff_k, rv=3.1, law="F99") -> np.ndarray:
+#: A_V nodes of the curvature grid (mag) and its Teff resolution.
+AV_MAX = 30.0
+_AV_STEP = 0.5
+_NGRID_AV = 401
+
+
+@functools.lru_cache(maxsize=128)
+def _curved_grid(band_name: str, law: str, rv: float):
+    """A_band/E(B-V) on a (log Teff, A_V) grid for a real-passband band: exact band integral of the
+    attenuated spectrum (see module docstring).  Returns (log Teff grid, A_V grid, ratio[nt, nav])."""
+    band = get_band(band_name)
+    lam, resp = passband(band)
+    try:
+        k = law_curve(law, rv, lam)
+    except ValueError as exc:
+        raise ValueError(f"band {band_name} ({lam[0]:.2f}-{lam[-1]:.2f} micron): {exc}; use the G23 law "
+                         f"(--extinction-law G23), which reaches 32 micron") from None
+    logt = np.linspace(np.log10(TEFF_RANGE_K[0]), np.log10(TEFF_RANGE_K[1]), _NGRID_AV)
+    av = np.arange(0.0, AV_MAX + 0.5 * _AV_STEP, _AV_STEP)
+    w = resp * _planck_photons(lam[None, :], 10.0 ** logt[:, None])
+    w /= w.sum(axis=1, keepdims=True)
+    ratio = np.empty((logt.size, av.size))
+    ratio[:, 0] = rv * (w * k).sum(axis=1)
+    for j in range(1, av.size):
+        a_band = -2.5 * np.log10((w * 10.0 ** (-0.4 * av[j] * k)).sum(axis=1))
+        ratio[:, j] = a_band * rv / av[j]
+    ratio.setflags(write=False)
+    return logt, av, ratio
+
+
+def extinction_ratio(band, teff_k, rv=3.1, law="F99", ebv=None) -> np.ndarray:
     """A_band / E(B-V) for a star of effective temperature ``teff_k`` (K).
 
-    Blackbody-weighted mean of the ``dust_extinction`` law over the approximate
-    passband (see module docstring); E(B-V) is the nominal colour excess A_V/R_V.
+    Blackbody-weighted mean of the ``dust_extinction`` law over the band's passband
+    (see module docstring); E(B-V) is the nominal colour excess A_V/R_V.  With ``ebv``
+    (scalar or array broadcasting against ``teff_k``), bands with a real passband give the
+    ratio at that amount of dust (curvature in A_V, valid to A_V = R_V E(B-V) <= 30 mag);
+    the eleven core bands always give the low-extinction limit.
     Valid 3,000-50,000 K and for the law's own R_V range (F99, CCM89: 2-6; G23: 2.3-5.6).
     """
-    name = get_band(band).name
+    b = get_band(band)
+    name = b.name
     rv = _check_rv(rv)
     _law_model(law, rv)
     teff = check_range(teff_k, "teff_k", *TEFF_RANGE_K, what="extinction calibration range (K)")
+    if b.passband != "approx":
+        av = np.zeros(()) if ebv is None else _check_ebv(ebv) * rv
+        if av.size and av.max() > AV_MAX:
+            raise ValueError(f"A_V = {av.max():g} mag (E(B-V) x R_V) is beyond the {AV_MAX:g} mag the "
+                             f"extinction of band {name} is tabulated for")
+        logt, avg, ratio = _curved_grid(name, law, rv)
+        lt, a = np.broadcast_arrays(np.log10(teff), av)
+        return _bilinear(logt, avg, ratio, lt, a)
     grid = _ratio_grid(name, law, rv)
     flat = np.log10(np.ravel(teff))
     i, f = grid.locate(flat)
     return grid.get("r", i, f).reshape(teff.shape)
+
+
+def _bilinear(x, y, z, xq, yq):
+    """Bilinear interpolation of z[len(x), len(y)] on uniform grids x, y at (xq, yq)."""
+    fx = np.clip((xq - x[0]) / (x[1] - x[0]), 0.0, x.size - 1.0)
+    fy = np.clip((yq - y[0]) / (y[1] - y[0]), 0.0, y.size - 1.0)
+    i = np.minimum(fx.astype(np.intp), x.size - 2)
+    j = np.minimum(fy.astype(np.intp), y.size - 2)
+    u, v = fx - i, fy - j
+    return ((1 - u) * (1 - v) * z[i, j] + u * (1 - v) * z[i + 1, j]
+            + (1 - u) * v * z[i, j + 1] + u * v * z[i + 1, j + 1])
 
 
 def _check_ebv(ebv) -> np.ndarray:
@@ -156,9 +256,11 @@ def _check_ebv(ebv) -> np.ndarray:
 
 
 def extinction_mag(band, ebv, teff_k, rv=3.1, law="F99") -> np.ndarray:
-    """Extinction A_band (mag) = E(B-V) * A_band/E(B-V)(Teff); ``ebv`` scalar or array, >= 0."""
+    """Extinction A_band (mag) = E(B-V) * A_band/E(B-V)(Teff, A_V); ``ebv`` scalar or array, >= 0.
+
+    Bands with a real passband include the curvature in A_V; the core bands are linear in E(B-V)."""
     ebv = _check_ebv(ebv)
-    return ebv * extinction_ratio(band, teff_k, rv=rv, law=law)
+    return ebv * extinction_ratio(band, teff_k, rv=rv, law=law, ebv=ebv)
 
 
 def apparent_magnitudes(absmag: dict, distance_modulus, ebv, teff_k, rv=3.1, law="F99") -> dict:

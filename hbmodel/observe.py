@@ -20,6 +20,7 @@ __all__ = [
     "POGSON_SCALE_MAG",
     "ErrorLaw",
     "default_error_law",
+    "survey_depth_5sigma",
     "Completeness",
     "observe_magnitudes",
     "ReddeningMap",
@@ -227,6 +228,30 @@ class ErrorLaw:
         return s
 
 
+def _survey_depths() -> dict:
+    """Band -> (depth_mag, snr, survey) of ``tables/survey_depths.csv``."""
+    import csv
+    import io as _io
+
+    from ._tables import table_text
+    rows = [ln for ln in table_text("survey_depths.csv").splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    return {r["band"]: (float(r["depth_mag"]), float(r["snr"]), r["survey"])
+            for r in csv.DictReader(_io.StringIO("\n".join(rows)))}
+
+
+def survey_depth_5sigma(band: str) -> float:
+    """Tabulated 5-sigma point-source limit of ``band``'s survey (``tables/survey_depths.csv``; a depth
+    quoted at another S/N is converted in the background-limited regime, m5 = m + 2.5 log10(snr/5))."""
+    from .photometry import resolve_band
+    name = resolve_band(band)
+    tab = _survey_depths()
+    if name not in tab:
+        raise ValueError(f"no survey depth is tabulated for band {name} (tabulated: {', '.join(tab)}); "
+                         f"give its 5-sigma limit with --depth {name}=MAG")
+    depth, snr, _survey = tab[name]
+    return depth + 2.5 * math.log10(snr / 5.0)
+
+
 def default_error_law(band: str, depth_mag: float | None = None) -> ErrorLaw:
     """A realistic default error law for ``band``.
 
@@ -236,13 +261,16 @@ def default_error_law(band: str, depth_mag: float | None = None) -> ErrorLaw:
     (background-limited scaling, see :class:`ErrorLaw`). Without
     ``depth_mag`` a tabulated survey depth is used where one exists
     (2MASS ``J``, ``H``, ``Ks``: Skrutskie et al. 2006, AJ 131, 1163, quoted
-    at 10 sigma); any other band needs ``depth_mag``.
+    at 10 sigma; the survey bands of ``tables/survey_depths.csv``: SDSS, Pan-STARRS1,
+    DES/DECam, LSST, WISE); any other band needs ``depth_mag``.
     """
     tab = read_table("error_law_default.csv")
     floor = float(tab["floor_mag"][0])
     if depth_mag is not None:
         return ErrorLaw.from_depth(depth_mag, snr_at_depth=float(tab["snr_at_depth"][0]), floor_mag=floor)
     key = f"depth_{band}_mag"
+    if key not in tab and band in _survey_depths():      # HST-era survey bands: tables/survey_depths.csv
+        return ErrorLaw.from_depth(survey_depth_5sigma(band), snr_at_depth=5.0, floor_mag=floor)
     if key not in tab:
         known = sorted(k[len("depth_"):-len("_mag")] for k in tab if k.startswith("depth_"))
         raise ValueError(f"no default depth for band {band!r} (tabulated: {', '.join(known)}); "

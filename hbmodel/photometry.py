@@ -41,7 +41,16 @@ Construction (each step names its published source; see the table headers):
    -0.5 < BP-RP < 2.75, extrapolated beyond, i.e. for the coolest M stars), and the
    split of BP-RP into BP and RP from the expected flux-excess factor
    C* = (I_BP + I_RP)/I_G and the EDR3 Vega zero points (Riello et al. 2021).
-5. **Solar reference** on the IAU 2015 bolometric scale (Resolution B2,
+5. **HST and survey bands** (``colour_source = relation`` in ``tables/bands.csv``): the magnitude
+   comes from the band's published colour relation in ``tables/band_relations.csv``,
+   ``m = m_base + c0 + c1 x + c2 x^2 (+ a tabulated sequence term)``, x a colour of bands computed
+   before (or of the band's own system, solved by fixed-point iteration): SDSS from UBVRcIc (Jester et
+   al. 2005, AJ 130, 873, Table 1), DECam from SDSS (DES DR2, Abbott et al. 2021), PS1 from SDSS (Tonry
+   et al. 2012, ApJ 750, 99, Table 6; memory), WISE from the Pecaut & Mamajek 2013 dwarf sequence.
+   Each relation is applied only inside its published colour range (and Teff limit): outside, or for a
+   band with no tabulated relation (HST, LSST for now), a ``ValueError`` -- never an extrapolation.
+   These bands are not in the default set ``BAND_NAMES``; ``ALL_BAND_NAMES`` lists every band.
+6. **Solar reference** on the IAU 2015 bolometric scale (Resolution B2,
    Prsa et al. 2016, AJ 152, 41): ``M_BOL_SUN = 4.74``.
 
 Limitations: U-B (Balmer jump) and G-V are *not* monotonic in Teff -- by physics,
@@ -65,7 +74,7 @@ from ._validate import as_float_array, check_range
 from .composition import FEH_RANGE
 
 __all__ = [
-    "M_BOL_SUN", "BAND_NAMES", "Band", "get_band", "resolve_band", "parse_bands", "parse_colour", "TEFF_RANGE_K", "LOGG_RANGE",
+    "M_BOL_SUN", "BAND_NAMES", "ALL_BAND_NAMES", "Band", "BandRelation", "band_relations", "get_band", "resolve_band", "parse_bands", "parse_colour", "TEFF_RANGE_K", "LOGG_RANGE",
     "bolometric_correction", "absolute_magnitudes", "colour", "colours_v", "FixedMetallicityPhotometry",
 ]
 
@@ -94,6 +103,7 @@ class Band:
     shape: str
     colour_source: str
     aliases: tuple[str, ...] = ()
+    passband: str = "approx"
 
 
 @table_cache
@@ -105,7 +115,7 @@ def _registry() -> dict[str, Band]:
         aliases = tuple(a.strip() for a in (r.get("aliases") or "").split(";") if a.strip())
         out[r["name"]] = Band(r["name"], r["system"], r["zero_point"], float(r["lambda_eff_um"]),
                               float(r["lambda_lo_um"]), float(r["lambda_hi_um"]), r["shape"],
-                              r["colour_source"], aliases)
+                              r["colour_source"], aliases, (r.get("passband") or "approx").strip())
     return out
 
 
@@ -125,14 +135,17 @@ def _band_lookup() -> dict[str, str]:
 def _nearest_band(name: str) -> str:
     """The known band nearest to an unknown ``name``: by spelling, else (HST-style F606W names) by wavelength."""
     lookup = _band_lookup()
-    close = difflib.get_close_matches(name.casefold(), list(lookup), n=1, cutoff=0.6)
-    if close:
-        return lookup[close[0]]
     m = re.search(r"F(\d{3,4})[WMNLPX]", name.upper())
     if m:  # HST convention: F606W = 606 nm; three-digit numbers below 200 are IR, F160W = 1.60 micron
         num = int(m.group(1))
         lam_um = num / 100.0 if num < 200 else num / 1000.0
-        return min(_registry().values(), key=lambda b: abs(math.log(b.lambda_eff_um / lam_um))).name
+        hst = [b for b in _registry().values() if b.system.startswith("HST")]
+        same = [b for b in hst if name.upper().startswith(b.name.split("_")[0] + "_")]
+        pool = same or hst or list(_registry().values())
+        return min(pool, key=lambda b: abs(math.log(b.lambda_eff_um / lam_um))).name
+    close = difflib.get_close_matches(name.casefold(), list(lookup), n=1, cutoff=0.6)
+    if close:
+        return lookup[close[0]]
     return lookup[difflib.get_close_matches(name.casefold(), list(lookup), n=1, cutoff=0.0)[0]]
 
 
@@ -181,14 +194,167 @@ def parse_colour(text, what: str = "--color") -> tuple[str, str]:
     return a, b
 
 
-#: Standard band names, in registry order.
-BAND_NAMES: tuple[str, ...] = tuple(_registry())
+#: The eleven core bands (Johnson-Cousins, 2MASS, Gaia), in registry order: the default band set.
+BAND_NAMES: tuple[str, ...] = tuple(n for n, b in _registry().items() if b.colour_source != "relation")
+
+#: Every band of the registry: the core bands plus the HST and survey bands whose magnitudes come from
+#: the published relations of ``tables/band_relations.csv`` (see :func:`relation_bands`).
+ALL_BAND_NAMES: tuple[str, ...] = tuple(_registry())
 
 
 def get_band(name: str) -> Band:
     """Return the :class:`Band` called ``name`` (or an alias, any case: see :func:`resolve_band`);
     unknown names raise ``ValueError``."""
     return _registry()[resolve_band(name)]
+
+
+# --------------------------------------------------------------------------- relation bands
+@dataclass(frozen=True)
+class BandRelation:
+    """A published colour relation of ``tables/band_relations.csv``:
+    ``m_band = m_base + c0 + c1 x + c2 x^2`` with ``x = m_xa - m_xb``, valid where
+    ``v_lo <= m_va - m_vb <= v_hi`` and ``Teff <= teff_max_k``."""
+
+    band: str
+    base: str
+    xa: str
+    xb: str
+    coef: tuple[float, float, float]
+    va: str
+    vb: str
+    v_lo: float
+    v_hi: float
+    teff_max_k: float
+    source: str
+    location: str
+    obtained: str
+    sequence: tuple | None = None   # (x nodes, y nodes): piecewise-linear term in x (band_colour_sequences.csv)
+
+    def validity(self) -> str:
+        hot = f", Teff <= {self.teff_max_k:,.0f} K" if self.teff_max_k < TEFF_RANGE_K[1] else ""
+        return f"{self.va}-{self.vb} in [{self.v_lo:g}, {self.v_hi:g}] mag{hot}"
+
+
+@table_cache
+def _sequences() -> dict[str, tuple]:
+    text = _text("band_colour_sequences.csv")
+    rows = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    seqs: dict[str, list] = {}
+    for r in csv.DictReader(io.StringIO("\n".join(rows))):
+        seqs.setdefault(r["sequence"].strip(), []).append((float(r["x"]), float(r["y"])))
+    out = {}
+    for name, pts in seqs.items():
+        x, y = (np.array(v, dtype=float) for v in zip(*pts))
+        if np.any(np.diff(x) <= 0):
+            raise ValueError(f"band_colour_sequences.csv: sequence {name} is not increasing in x")
+        x.setflags(write=False)
+        y.setflags(write=False)
+        out[name] = (x, y)
+    return out
+
+
+@table_cache
+def _relations() -> dict[str, BandRelation]:
+    text = _text("band_relations.csv")
+    rows = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    reg = _registry()
+    out = {}
+    for r in csv.DictReader(io.StringIO("\n".join(rows))):
+        band = r["band"].strip()
+        if band not in reg or reg[band].colour_source != "relation":
+            raise ValueError(f"band_relations.csv: {band!r} is not a relation band of bands.csv")
+        if band in out:
+            raise ValueError(f"band_relations.csv: band {band} has more than one relation")
+        names = [r[k].strip() for k in ("base", "xa", "xb", "va", "vb")]
+        for n in names:
+            if n not in reg:
+                raise ValueError(f"band_relations.csv: relation of {band} uses unknown band {n!r}")
+        seq_name = (r.get("sequence") or "").strip()
+        seq = None
+        if seq_name:
+            if seq_name not in _sequences():
+                raise ValueError(f"band_relations.csv: relation of {band} names unknown sequence {seq_name!r}")
+            seq = _sequences()[seq_name]
+        out[band] = BandRelation(band, names[0], names[1], names[2],
+                                 tuple(float(r[f"c{k}"]) for k in range(3)), names[3], names[4],
+                                 float(r["v_lo"]), float(r["v_hi"]), float(r["teff_max_k"]),
+                                 r["source"].strip(), r["location"].strip(), r["obtained"].strip(), seq)
+    return out
+
+
+def band_relations() -> dict[str, BandRelation]:
+    """The published colour relations of the relation bands, band name -> :class:`BandRelation`."""
+    return dict(_relations())
+
+
+def _is_relation(name: str) -> bool:
+    return _registry()[name].colour_source == "relation"
+
+
+def _relation_closure(names) -> tuple[set, list]:
+    """Core bands needed and relation bands to evaluate (dependencies first) for relation bands ``names``.
+
+    A relation band without a tabulated relation is a one-line ``ValueError``."""
+    rels = _relations()
+    core, order, seen = set(), [], set()
+
+    def visit(b):
+        if b in seen:
+            return
+        seen.add(b)
+        if not _is_relation(b):
+            core.add(b)
+            return
+        r = rels.get(b)
+        if r is None:
+            band = _registry()[b]
+            raise ValueError(f"band {b} ({band.system}): no published colour relation is tabulated for it yet "
+                             f"(tables/band_relations.csv), so its magnitudes are not available; its passband "
+                             f"and extinction are")
+        for dep in (r.base, r.xa, r.xb, r.va, r.vb):
+            visit(dep)
+        order.append(b)
+
+    for b in names:
+        visit(b)
+    return core, order
+
+
+def _apply_relations(m: dict, order: list, teff, check: bool) -> None:
+    """Evaluate the relations ``order`` into ``m`` (band -> magnitude relative to V), in place.
+
+    Self-referring colours (e.g. Pan-STARRS1 from SDSS in terms of (g-r)_P1) are solved by fixed-point
+    iteration.  Stars outside a relation's validity raise a ``ValueError`` (``check``) or get NaN."""
+    rels = _relations()
+    for b in order:
+        base = rels[b].base
+        m[b] = np.array(m[base], dtype=float, copy=True) if base in m else np.zeros_like(teff)
+    for _ in range(50):
+        delta = 0.0
+        for b in order:
+            r = rels[b]
+            x = m[r.xa] - m[r.xb]
+            new = m[r.base] + r.coef[0] + x * (r.coef[1] + r.coef[2] * x)
+            if r.sequence is not None:
+                new = new + np.interp(x, *r.sequence)
+            if new.size:
+                delta = max(delta, float(np.nanmax(np.abs(new - m[b]), initial=0.0)))
+            m[b] = new
+        if delta < 1e-10:
+            break
+    for b in order:
+        r = rels[b]
+        v = m[r.va] - m[r.vb]
+        bad = ~((v >= r.v_lo) & (v <= r.v_hi) & (teff <= r.teff_max_k))
+        if not bad.any():
+            continue
+        if check:
+            k = int(np.flatnonzero(bad)[0])
+            hot = " (hot HB stars have no published relation in this band)" if teff[k] > r.teff_max_k else ""
+            raise ValueError(f"band {b}: {int(bad.sum())} star(s) outside the published relation "
+                             f"({r.source}, {r.location}: valid for {r.validity()}), e.g. Teff = {teff[k]:,.0f} K "
+                             f"with {r.va}-{r.vb} = {v[k]:.2f}{hot}; not extrapolated")
+        m[b] = np.where(bad, np.nan, m[b])
 
 
 # --------------------------------------------------------------------------- tables
@@ -352,13 +518,21 @@ def _check_inputs(teff_k, logg, feh):
         raise ValueError("teff_k, logg and feh must have broadcast-compatible shapes") from None
 
 
-def colours_v(teff_k, logg, feh, only=None) -> dict[str, np.ndarray]:
-    """Colours ``V - X`` for every band X of the registry (``'V'`` is 0), plus ``'_bc_v'``.
+def colours_v(teff_k, logg, feh, only=None, check=True) -> dict[str, np.ndarray]:
+    """Colours ``V - X`` for every core band X (``'V'`` is 0), plus ``'_bc_v'``; ``only`` selects bands,
+    which may include relation bands (HST, surveys: ``tables/band_relations.csv``).
 
     This is the shared engine of :func:`bolometric_correction`,
     :func:`absolute_magnitudes` and :func:`colour`; see the module docstring for
-    the published relations and their validity ranges.
+    the published relations and their validity ranges.  A star outside the validity of a relation
+    band's published relation is a ``ValueError`` (``check``) or NaN (``check=False``).
     """
+    rel_order = []
+    if only is not None:
+        rel = [b for b in only if _is_relation(b)]
+        if rel:
+            core_need, rel_order = _relation_closure(rel)
+            only = tuple((set(only) - set(rel_order)) | core_need)
     teff, logg, feh = _check_inputs(teff_k, logg, feh)
     shape = teff.shape
     teff, logg, feh = (np.ravel(a) for a in (teff, logg, feh))
@@ -407,6 +581,11 @@ def colours_v(teff_k, logg, feh, only=None) -> dict[str, np.ndarray]:
         ig, fg = gg.locate(out["I"])
         for b in gaia:
             out[b] = gg.get(b, ig, fg)
+    if rel_order:
+        m = {b: -v for b, v in out.items() if not b.startswith("_")}
+        _apply_relations(m, rel_order, teff, check)
+        for b in rel_order:
+            out[b] = -m[b]
     return {k: v.reshape(shape) for k, v in out.items()}
 
 
@@ -450,7 +629,7 @@ def bolometric_correction(band, teff_k, logg, feh) -> np.ndarray:
     Valid 3,000-50,000 K, log g -0.5...6.5, [Fe/H] in ``FEH_RANGE``.
     """
     name = get_band(band).name
-    v = colours_v(teff_k, logg, feh)
+    v = colours_v(teff_k, logg, feh, only=(name,))
     return v["_bc_v"] + v[name]
 
 
@@ -470,7 +649,7 @@ def absolute_magnitudes(teff_k, logg, feh, logl_lsun, bands=BAND_NAMES) -> dict[
 def colour(band1, band2, teff_k, logg, feh) -> np.ndarray:
     """Colour index ``band1 - band2`` (mag), e.g. ``colour('B', 'V', 5772, 4.44, 0.0)``."""
     b1, b2 = get_band(band1).name, get_band(band2).name
-    v = colours_v(teff_k, logg, feh)
+    v = colours_v(teff_k, logg, feh, only=(b1, b2))
     return v[b2] - v[b1]
 
 
@@ -498,7 +677,8 @@ class FixedMetallicityPhotometry:
         need = set(self.bands) | ({"I"} if set(self.bands) & set(self._GAIA) else set())
         cols = {}
         for key, logg in (("d", _DWARF_LOGG), ("g", _GIANT_LOGG)):
-            v = colours_v(teff, np.full_like(teff, logg), np.full_like(teff, self.feh), only=tuple(need))
+            v = colours_v(teff, np.full_like(teff, logg), np.full_like(teff, self.feh), only=tuple(need),
+                          check=False)   # NaN outside a relation band's validity: refused at look-up
             cols[f"bcv_{key}"] = v["_bc_v"]
             for b in need:
                 if b not in self._GAIA:
@@ -527,6 +707,20 @@ class FixedMetallicityPhotometry:
         g += d
         return g
 
+    def _relation_bc(self, name, i, f, wg, logteff):
+        """BC of a relation band, refusing stars outside its published relation (NaN on the grid)."""
+        d = self.grid.get(f"{name}_d", i, f)
+        g = self.grid.get(f"{name}_g", i, f)
+        bc = np.where(wg >= 1.0, g, np.where(wg <= 0.0, d, d + wg * (g - d)))
+        bad = np.isnan(bc)
+        if bad.any():
+            r = _relations()[name]
+            t = 10.0 ** np.asarray(logteff, float)[bad] if np.ndim(logteff) else np.array([10.0 ** float(logteff)])
+            raise ValueError(f"band {name}: {int(bad.sum())} star(s) (Teff {t.min():,.0f}-{t.max():,.0f} K) outside "
+                             f"the published relation ({r.source}, {r.location}: valid for {r.validity()}); "
+                             f"not extrapolated")
+        return bc
+
     def absolute_magnitudes(self, logteff, logg, logl, located=None) -> dict[str, np.ndarray]:
         """``M_band`` for every band; ``located`` may pass a precomputed ``locate(logteff)``.
 
@@ -545,6 +739,8 @@ class FixedMetallicityPhotometry:
         for b in self.bands:
             if b in self._GAIA:
                 out[b] = mbol - (bcv + gg.get(b, ig, fg))
+            elif _is_relation(b):
+                out[b] = mbol - self._relation_bc(b, i, f, wg, logteff)
             else:
                 m = self._bc(b, i, f, wg)
                 np.subtract(mbol, m, out=m)

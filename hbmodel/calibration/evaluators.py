@@ -199,17 +199,31 @@ def _predict_cached(cp, key):
     return cp.build().predict(bands=TARGET_BANDS)
 
 
+@functools.lru_cache(maxsize=64)
+def _predict_band_cached(cp, band, key):
+    """Predictions in one band outside TARGET_BANDS (e.g. WISE_W1), cached per population recipe and trial."""
+    return cp.build().predict(bands=(band,))
+
+
 @functools.lru_cache(maxsize=16)
 def _stars_cached(cp, key):
     return cp.build().model_stars()
 
 
 def _clump_mag(pop, band):
-    if band not in _bands():
-        raise NotModelled(f"band {band} is not in hbmodel's band set")
-    if isinstance(pop, _Cached) and band not in TARGET_BANDS:
-        pop = pop.build()
-    p = pop.predict(bands=(band,))
+    from ..photometry import resolve_band
+    try:
+        band = resolve_band(band)     # aliases too: a row's 'W1' is the registry's WISE_W1
+    except ValueError:
+        raise NotModelled(f"band {band} is not in hbmodel's band set") from None
+    try:
+        if isinstance(pop, _Cached) and band not in TARGET_BANDS:
+            from .._tables import _key
+            p = _predict_band_cached(pop, band, _key())
+        else:
+            p = pop.predict(bands=(band,))
+    except ValueError as exc:         # a relation band refusing stars outside its published relation
+        raise NotModelled(str(exc)) from None
     if p.get("clump_absmag") is None:
         raise NotModelled("no red-HB / clump stars in the model population")
     return float(p["clump_absmag"][band])
@@ -567,7 +581,23 @@ def bump_minus_hb_mag(row):
     return _predict_key(pop, "bump_absmag", "V") - _predict_key(pop, "zahb_mv_rr", "V")
 
 
+def extinction_ratio_av(row):
+    """A_band / A_V of the band in the row (low-extinction limit) for a blackbody of ``teff_k`` (conditions;
+    default 7,000 K), law ``law`` (default F99) and ``rv`` (default 3.1).  A_V is the band-integrated V
+    extinction at the same Teff, as published tables of A_band/E(B-V) normalise to their V (Landolt) row."""
+    from ..extinction import extinction_ratio
+    from ..photometry import resolve_band
+    c = _cond(row)
+    try:
+        band = resolve_band(row["band"])
+    except ValueError:
+        raise NotModelled(f"band {row['band']} is not in hbmodel's band set") from None
+    teff, law, rv = float(c.get("teff_k", 7000.0)), c.get("law", "F99"), float(c.get("rv", 3.1))
+    return float(extinction_ratio(band, teff, rv, law) / extinction_ratio("V", teff, rv, law))
+
+
 EVALUATORS = {f.__name__: f for f in (
+    extinction_ratio_av,
     tip_mass_msun, ms_lifetime_gyr, trgb_abs_mag, rgb_colour_at_mag,
     flash_core_mass_msun, min_ignition_core_mass_msun, mass_at_min_core_msun,
     integrated_mass_loss_msun,

@@ -19,8 +19,12 @@ with --chunk-size writes Parquet partitions (survey-size mocks).
 
 
 def _depths(text, bands):
-    """--depth V=23,I=22.5 -> {band: limit} with canonical band names, each one of ``bands``."""
+    """--depth V=23,I=22.5 -> {band: limit} with canonical band names, each one of ``bands``;
+    --depth survey -> the tabulated survey depths of every band (tables/survey_depths.csv)."""
     from ..photometry import resolve_band
+    if text is not None and str(text).strip().casefold() == "survey":
+        from ..observe import survey_depth_5sigma
+        return {b: survey_depth_5sigma(b) for b in bands}
     out = {}
     for key, value in parse_mapping(text, "--depth", numeric=True).items():
         band = resolve_band(key, "--depth")
@@ -45,7 +49,8 @@ def add_arguments(p):
     o.add_argument("--rv", type=float, default=3.1)
     o.add_argument("--extinction-law", default="F99", help="extinction law (F99, CCM89, G23 ...)")
     o.add_argument("--ebv-sd", type=float, default=0.0, help="Gaussian differential reddening (mag)")
-    o.add_argument("--depth", default=None, help="5-sigma limits per band, e.g. V=23,I=22.5")
+    o.add_argument("--depth", default=None, help="5-sigma limits per band, e.g. V=23,I=22.5; 'survey' = the tabulated survey depths "
+                        "(SDSS, PS1, DES, LSST, WISE: tables/survey_depths.csv)")
     o.add_argument("--completeness-m50", type=float, default=None, help="50%% completeness magnitude")
     o.add_argument("--completeness-width", type=float, default=0.15)
     o.add_argument("--binary-fraction", type=float, default=0.0, help="fraction of unresolved binaries")

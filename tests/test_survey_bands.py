@@ -1,0 +1,194 @@
+"""HST and survey bands: registry, real passbands, extinction with curvature, published colour relations,
+their validity ranges, survey depths, and the commands end to end (issue 19)."""
+import json
+import math
+
+import numpy as np
+import pytest
+
+from hbmodel.extinction import AV_MAX, extinction_mag, extinction_ratio, law_curve, passband
+from hbmodel.observe import default_error_law, survey_depth_5sigma
+from hbmodel.photometry import (ALL_BAND_NAMES, BAND_NAMES, FixedMetallicityPhotometry, absolute_magnitudes,
+                                band_relations, colours_v, get_band, resolve_band)
+
+NEW_BANDS = ("ACS_F435W", "ACS_F606W", "ACS_F814W", "UVIS_F336W", "UVIS_F438W", "UVIS_F606W", "UVIS_F814W",
+             "IR_F110W", "IR_F160W", "SDSS_u", "SDSS_g", "SDSS_r", "SDSS_i", "SDSS_z",
+             "PS1_g", "PS1_r", "PS1_i", "PS1_z", "PS1_y", "DECam_g", "DECam_r", "DECam_i", "DECam_z", "DECam_Y",
+             "LSST_u", "LSST_g", "LSST_r", "LSST_i", "LSST_z", "LSST_y", "WISE_W1", "WISE_W2")
+GIANT = (np.array([4500.0, 4800.0, 5200.0]), 2.5, -0.5)   # K giants and the clump (Teff, log g, [Fe/H])
+
+
+# --------------------------------------------------------------------------- registry
+def test_registry_has_every_new_band_with_a_real_passband_and_keeps_the_core_set():
+    assert BAND_NAMES == ("U", "B", "V", "R", "I", "J", "H", "Ks", "G", "BP", "RP")   # default set unchanged
+    assert set(NEW_BANDS) <= set(ALL_BAND_NAMES)
+    for name in NEW_BANDS:
+        b = get_band(name)
+        assert b.colour_source == "relation" and b.passband != "approx", name
+        lam, resp = passband(b)
+        # the curve's photon-weighted mean wavelength lies inside its half-maximum edges (registry columns)
+        lam_mean = float((lam * resp).sum() / resp.sum())
+        assert b.lambda_lo_um < lam_mean < b.lambda_hi_um, name
+    # published pivot wavelengths (STScI ACS instrument handbook, from memory): F606W 5918 A, F814W 8045-8060 A
+    assert get_band("ACS_F606W").lambda_eff_um == pytest.approx(0.5918, abs=0.002)
+    assert get_band("ACS_F814W").lambda_eff_um == pytest.approx(0.805, abs=0.003)
+    assert resolve_band("w1") == "WISE_W1" and resolve_band("F160W") == "IR_F160W" and resolve_band("g_P1") == "PS1_g"
+
+
+# --------------------------------------------------------------------------- extinction
+@pytest.mark.parametrize("band,published", [
+    # Schlafly & Finkbeiner 2011, ApJ 737, 103, Table 6 (R_V = 3.1, F99): A_b/E(B-V)_SFD of ACS F606W 2.471,
+    # ACS F814W 1.526, Landolt V 2.742 (values recalled from memory); the ratio A_band/A_V is free of the SFD scale.
+    ("ACS_F606W", 2.471 / 2.742),
+    ("ACS_F814W", 1.526 / 2.742),
+])
+def test_acs_extinction_ratios_match_schlafly_finkbeiner_2011_for_a_k_giant(band, published):
+    for teff in (4500.0, 7000.0):    # a K giant, and the 7,000 K source spectrum of the published table
+        ratio = float(extinction_ratio(band, teff) / extinction_ratio("V", teff))
+        assert ratio == pytest.approx(published, abs=0.03), (band, teff, ratio)
+
+
+def test_curvature_in_av_falls_a_broad_band_ratio_by_about_one_percent_per_magnitude():
+    # common practice (e.g. the issue's "~1-2 % per magnitude of A_V" for broad optical bands): the blue side of a
+    # broad passband is extinguished first, so A_band/A_V falls with A_V; a narrow-in-log-lambda IR band barely.
+    teff = 4700.0
+    r0 = float(extinction_ratio("ACS_F606W", teff))
+    r5 = float(extinction_ratio("ACS_F606W", teff, ebv=5.0 / 3.1))
+    per_mag = (1.0 - r5 / r0) / 5.0
+    assert 0.003 < per_mag < 0.03
+    ir0, ir5 = float(extinction_ratio("IR_F160W", teff)), float(extinction_ratio("IR_F160W", teff, ebv=5.0 / 3.1))
+    assert (1.0 - ir5 / ir0) / 5.0 < per_mag / 3.0
+    # exact band integral of the attenuated blackbody (photon counting), computed here independently
+    lam, resp = passband("ACS_F606W")
+    k = law_curve("F99", 3.1, lam)
+    w = resp * lam ** -4 / np.expm1(14387.7688 / (lam * teff))
+    a_band = -2.5 * math.log10(float((w * 10 ** (-0.4 * 5.0 * k)).sum() / w.sum()))
+    assert float(extinction_mag("ACS_F606W", 5.0 / 3.1, teff)) == pytest.approx(a_band, abs=0.01)
+    # the eleven core bands keep the linear limit (their numbers unchanged)
+    assert float(extinction_ratio("V", teff, ebv=2.0)) == float(extinction_ratio("V", teff))
+    with pytest.raises(ValueError, match="beyond"):
+        extinction_ratio("ACS_F606W", teff, ebv=(AV_MAX + 1) / 3.1)
+
+
+def test_wise_bands_need_a_law_that_reaches_their_wavelengths():
+    with pytest.raises(ValueError, match="G23"):
+        extinction_ratio("WISE_W1", 4500.0, law="F99")
+    # G23 at 3.4 micron: A_W1/A_V ~ 0.05 (Gordon et al. 2023 curve; order of magnitude, common practice)
+    assert 0.02 < float(extinction_ratio("WISE_W1", 4500.0, law="G23")) / 3.1 < 0.09
+
+
+# --------------------------------------------------------------------------- colour relations
+def test_sdss_magnitudes_follow_jester_2005_table_1():
+    # Jester et al. 2005, AJ 130, 873, Table 1 (all stars with Rc-Ic < 1.15):
+    # g = V + 0.60(B-V) - 0.12; r = V - 0.42(B-V) + 0.11; r-i = 0.91(Rc-Ic) - 0.20; u-g = 1.28(U-B) + 1.13
+    teff, logg, feh = GIANT
+    m = absolute_magnitudes(teff, logg, feh, 1.7, ("U", "B", "V", "R", "I", "SDSS_u", "SDSS_g", "SDSS_r", "SDSS_i"))
+    bv, ub, ri = m["B"] - m["V"], m["U"] - m["B"], m["R"] - m["I"]
+    np.testing.assert_allclose(m["SDSS_g"], m["V"] + 0.60 * bv - 0.12, atol=1e-9)
+    np.testing.assert_allclose(m["SDSS_r"], m["V"] - 0.42 * bv + 0.11, atol=1e-9)
+    np.testing.assert_allclose(m["SDSS_r"] - m["SDSS_i"], 0.91 * ri - 0.20, atol=1e-9)
+    np.testing.assert_allclose(m["SDSS_u"] - m["SDSS_g"], 1.28 * ub + 1.13, atol=1e-9)
+
+
+def test_decam_follows_des_dr2_and_ps1_solves_its_own_colour():
+    teff, logg, feh = GIANT
+    m = absolute_magnitudes(teff, logg, feh, 1.7, ("SDSS_g", "SDSS_r", "SDSS_i", "DECam_g", "DECam_r", "PS1_g",
+                                                   "PS1_r", "PS1_i"))
+    # DES DR2 transformations (Abbott et al. 2021): g_DES = g - 0.061 (g-i) + 0.008; r_DES = r - 0.155 (r-i) - 0.007
+    np.testing.assert_allclose(m["DECam_g"], m["SDSS_g"] - 0.061 * (m["SDSS_g"] - m["SDSS_i"]) + 0.008, atol=1e-9)
+    np.testing.assert_allclose(m["DECam_r"], m["SDSS_r"] - 0.155 * (m["SDSS_r"] - m["SDSS_i"]) - 0.007, atol=1e-9)
+    # Tonry et al. 2012 Table 6 is in terms of the PS1 colour itself: the fixed point must satisfy it
+    x = m["PS1_g"] - m["PS1_r"]
+    np.testing.assert_allclose(m["SDSS_g"] - m["PS1_g"], 0.013 + 0.145 * x + 0.019 * x * x, atol=1e-8)
+    np.testing.assert_allclose(m["SDSS_i"] - m["PS1_i"], -0.005 + 0.011 * x + 0.010 * x * x, atol=1e-8)
+
+
+def test_wise_w1_follows_the_pecaut_mamajek_sequence():
+    # Pecaut & Mamajek 2013 (online table 2019.3.22): K3.5V has V-Ks = 2.582 and Ks-W1 = 0.036
+    t = np.array([4000.0, 4500.0, 5000.0, 5500.0])
+    m = absolute_magnitudes(t, 4.5, 0.0, 0.0, ("V", "Ks", "WISE_W1"))
+    rel = band_relations()["WISE_W1"]
+    np.testing.assert_allclose(m["WISE_W1"] - m["Ks"], np.interp(m["V"] - m["Ks"], *rel.sequence), atol=1e-9)
+    assert float(np.interp(2.582, *rel.sequence)) == pytest.approx(-0.036, abs=1e-9)
+
+
+def test_hot_hb_stars_are_refused_in_the_u_band_and_bands_without_a_relation_are_refused():
+    with pytest.raises(ValueError, match="hot HB stars have no published relation"):
+        absolute_magnitudes(np.array([6000.0, 15000.0]), 3.5, -1.5, 1.5, ("SDSS_u",))
+    # the grid path of the mock refuses the same star
+    ph = FixedMetallicityPhotometry(-1.5, ("SDSS_u",))
+    with pytest.raises(ValueError, match="SDSS_u: 1 star"):
+        ph.absolute_magnitudes(np.log10([6000.0, 15000.0]), np.array([3.5, 3.5]), np.array([1.5, 1.5]))
+    # a cool M giant beyond Rc-Ic = 1.15 (the range of Jester et al. 2005) is not extrapolated
+    with pytest.raises(ValueError, match="Rc-Ic < 1.15"):
+        absolute_magnitudes(np.array([3300.0]), 0.5, 0.0, 3.0, ("SDSS_g",))
+    for band in ("ACS_F606W", "UVIS_F336W", "IR_F160W", "LSST_r", "PS1_y", "DECam_Y"):
+        with pytest.raises(ValueError, match="no published colour relation is tabulated"):
+            absolute_magnitudes(np.array([4700.0]), 2.5, 0.0, 1.7, (band,))
+    # inside the range the grid path agrees with the direct path (< 1e-3 mag, as for the core bands)
+    t = np.array([4600.0, 5100.0, 6200.0])
+    ph = FixedMetallicityPhotometry(-0.5, ("SDSS_g", "PS1_i", "WISE_W1"))
+    grid = ph.absolute_magnitudes(np.log10(t), np.array([2.4, 2.5, 3.0]), np.full(3, 1.7))
+    ref = absolute_magnitudes(t, np.array([2.4, 2.5, 3.0]), -0.5, 1.7, ("SDSS_g", "PS1_i", "WISE_W1"))
+    for b in grid:
+        np.testing.assert_allclose(grid[b], ref[b], atol=1e-3)
+    assert "SDSS_g" not in colours_v(t, 2.5, 0.0)        # relation bands only on request
+
+
+# --------------------------------------------------------------------------- clump, depths
+def test_clump_w1_matches_the_solar_neighbourhood_calibrations():
+    from hbmodel.calibration.evaluators import evaluate_row
+    from hbmodel.calibration.targets import read_targets
+    rows = {r["id"]: r for r in read_targets()}
+    # Yaz Gokce et al. 2013 (New Astronomy; Hipparcos RC stars): M_W1 = -1.635 +- 0.026 (mode)
+    r = rows["photometry.yaz13_mw1"]
+    assert evaluate_row(r) == pytest.approx(r["value"], abs=2 * r["uncertainty"] + 0.02)
+
+
+def test_survey_depths_give_the_published_limits():
+    # Chambers et al. 2016 (abstract): PS1 3pi stack 5-sigma i = 23.1; the error law gives 1.0857/5 + 0.01 there
+    assert survey_depth_5sigma("PS1_i") == pytest.approx(23.1)
+    assert float(default_error_law("PS1_i")(np.array([23.1]))[0]) == pytest.approx(1.0857 / 5 + 0.01, abs=2e-3)
+    # Abbott et al. 2021 (DES DR2 abstract): i = 23.8 at S/N = 10 -> 5 sigma 0.75 mag fainter (background limited)
+    assert survey_depth_5sigma("DECam_i") == pytest.approx(23.8 + 2.5 * math.log10(2.0))
+    with pytest.raises(ValueError, match="no survey depth"):
+        survey_depth_5sigma("ACS_F606W")
+
+
+# --------------------------------------------------------------------------- commands
+def test_predict_gives_clump_magnitudes_in_survey_bands(capsys):
+    from hbmodel.cli import main
+    rc = main(["predict", "--feh", "-0.1", "--age", "4", "--eta", "0.3", "--bands",
+               "SDSS_g,PS1_i,WISE_W1,Ks", "--json"])
+    assert rc in (0, None)
+    d = json.loads(capsys.readouterr().out)
+    clump = d["clump_absmag"]
+    assert set(clump) == {"SDSS_g", "PS1_i", "WISE_W1", "Ks"}
+    # K-giant colours: g - i ~ 1.0-1.3 (Jester relation at B-V ~ 1, R-I ~ 0.5) and Ks - W1 ~ 0.03 (Pecaut & Mamajek)
+    assert 0.7 < clump["SDSS_g"] - clump["PS1_i"] < 1.4
+    assert 0.0 < clump["Ks"] - clump["WISE_W1"] < 0.08
+
+
+def test_predict_in_an_hst_band_is_a_one_line_refusal(capsys):
+    from hbmodel.cli import main
+    rc = main(["predict", "--feh", "-0.1", "--age", "4", "--eta", "0.3", "--bands", "ACS_F606W,ACS_F814W"])
+    err = capsys.readouterr().err
+    assert rc not in (0, None) and "no published colour relation" in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+
+
+@pytest.mark.slow
+def test_mass_loss_is_recovered_from_a_survey_band_mock(tmp_path):
+    # injected Reimers eta 0.35 (spread 0.03) in SDSS g, i with the tabulated survey depths; Laplace fit
+    from hbmodel.cli import main
+    cat = tmp_path / "m.ecsv"
+    assert main(["mock", "--feh", "-1.0", "--alpha-fe", "0.3", "--age", "11", "--eta", "0.35", "--eta-sd", "0.03",
+                 "--n-hb", "300", "--bands", "SDSS_g,SDSS_i", "--distance-modulus", "15", "--ebv", "0.05",
+                 "--depth", "survey", "--seed", "3", "--out", str(cat)]) in (0, None)
+    out = tmp_path / "fit"
+    assert main(["fit", str(cat), "--bands", "SDSS_g,SDSS_i", "--feh", "-1.0", "--alpha-fe", "0.3", "--age", "11",
+                 "--distance-modulus", "15", "--ebv", "0.05", "--sampler", "laplace", "--no-compare",
+                 "--out", str(out)]) in (0, None)
+    res = json.loads(next(out.glob("*.json")).read_text())
+    eta = res["eta"]["median"]
+    assert eta == pytest.approx(0.35, abs=0.03)
