@@ -28,7 +28,8 @@ Differential reddening: each star's E(B-V) scatters about the mean by a Gaussian
 nuisance parameter), which moves it along the reddening vector v = (E(colour)/E(B-V), A_first/E(B-V)).  The
 model density is then the walker's image convolved with that 1-D Gaussian along v: done exactly (for the
 pixelised image) by a Fourier multiplier exp(-2 pi^2 sd^2 (u . f)^2), u = v in pixels, on a zero-padded image
-(no wrap-around), and normalised over the region from the convolved image itself.  The convolution is linear,
+(no wrap-around).  Its normalisation over the region is the average of the plain one over shifts along v
+(9-node Gauss-Hermite quadrature on the shift tables, which then reach that far).  The convolution is linear,
 so it commutes with the weighted sum of basis images and is applied once per walker.
 
 Validity: two bands; a simple population (one age and composition); the region must lie brighter than the
@@ -54,6 +55,9 @@ __all__ = ["ErrorModel", "HBSurrogate", "CMDLikelihood", "hat_gaussian_weights",
            "hess_poisson_deviance"]
 
 _SQ2PI = np.sqrt(2.0 * np.pi)
+# Gauss-Hermite nodes/weights for the standard normal (probabilists' Hermite, weights summing to 1)
+_GH_T, _GH_W = np.polynomial.hermite_e.hermegauss(9)
+_GH_W = _GH_W / _GH_W.sum()
 
 
 @functools.lru_cache(maxsize=None)
@@ -443,14 +447,22 @@ class CMDLikelihood:
         self._mcen = mcen
         self.shift_lo = np.asarray(shift_lo, float)
         self.shift_hi = np.asarray(shift_hi, float)
-        self._build_norm_tables(n_shift)
         self._setup_blur(reddening_vector, float(spread_max))
+        if self._blur_q is not None:
+            # the normalisation of a convolved image is the Gauss-Hermite average of the plain one over shifts
+            # along the reddening vector: the tables reach that far, at the same shift spacing
+            ext = _GH_T.max() * self.spread_max * np.abs(np.array(self.reddening_vector))
+            width = self.shift_hi - self.shift_lo
+            n_shift = int(min(3 * n_shift, np.ceil(n_shift * np.max((width + 2 * ext) / width))))
+            self.shift_lo, self.shift_hi = self.shift_lo - ext, self.shift_hi + ext
+        self._build_norm_tables(n_shift)
 
     def _setup_blur(self, vec, spread_max):
         """Fourier multiplier of the differential-reddening convolution (see the module docstring):
         ``q`` such that the multiplier is exp(-sd^2 q), on an image zero-padded by 4.5 sd_max |v| pixels."""
         self._blur_q = None
         self.spread_max = spread_max
+        self.reddening_vector = None
         if vec is None or not spread_max > 0:
             return
         s = self.s
@@ -483,8 +495,11 @@ class CMDLikelihood:
         """Model images of the walkers and their normalisations over the region."""
         img = self.s.images(None, None, None, blocks=blocks)
         if self._blur_q is not None and p.get("ebv_spread") is not None:
-            img = self.blur(img, p["ebv_spread"])
-            return img, self._normalisation(img, sc, sm)
+            sd = np.broadcast_to(np.asarray(p["ebv_spread"], float), sc.shape)
+            vc, vm = self.reddening_vector
+            z = sum(w * self._norm_from_tables(blocks, sc + t * sd * vc, sm + t * sd * vm)
+                    for t, w in zip(_GH_T, _GH_W))
+            return self.blur(img, sd), z
         return img, self._norm_from_tables(blocks, sc, sm)
 
     def _build_norm_tables(self, n_shift):
