@@ -397,3 +397,30 @@ def test_normalisation_of_the_convolved_model_matches_its_image():
     ll = [like(dict(p, shift_colour=np.array([0.0]), shift_mag=np.array([0.0]), ebv_spread=np.array([s])))[0]
           for s in (0.0, 0.01, 0.03, 0.08)]
     assert np.all(np.isfinite(ll)) and np.all(np.diff(ll) < 0), ll
+
+
+def test_cli_declared_flux_over_error_columns_fit_like_magnitude_errors(tmp_path, capsys):
+    # Gaia catalogues give phot_*_mean_flux_over_error (a signal-to-noise), not a magnitude error.  Declared
+    # in --columns as <band>_flux_over_error it is converted (sigma_mag = 2.5/ln10 / (F/sigma_F)), and the
+    # fit equals the fit of the same stars with the magnitude errors; mapped as <band>_err it is refused.
+    pop = Population(0.0, 4.0, mass_loss=MassLoss.from_delta_m(0.08, 0.01))
+    cat = make_mock(pop, bands=("G", "RP"), rng=np.random.default_rng(8), n_hb=150,
+                    obs=ObservationSpec(distance_modulus=12.0, ebv=0.1, depth={"G": 20, "RP": 19}))
+    cat.write(tmp_path / "mag.ecsv")
+    gaia = Table({"phot_g_mean_mag": cat["G"], "phot_rp_mean_mag": cat["RP"],
+                  "phot_g_mean_flux_over_error": 2.5 / np.log(10) / np.asarray(cat["G_err"]),
+                  "phot_rp_mean_flux_over_error": 2.5 / np.log(10) / np.asarray(cat["RP_err"])})
+    gaia.write(tmp_path / "gaia.ecsv")
+    common = ["--bands", "G,RP", "--feh", "0", "--age", "4", "--distance-modulus", "12", "--dm-sd", "0.05",
+              "--ebv", "0.1", "--ebv-spread", "none", "--sampler", "laplace", "--no-compare", "--json"]
+    assert main(["fit", str(tmp_path / "mag.ecsv")] + common) == 0
+    ref = json.loads(capsys.readouterr().out)
+    cols = ("G=phot_g_mean_mag,RP=phot_rp_mean_mag,G_flux_over_error=phot_g_mean_flux_over_error,"
+            "rp_flux_over_error=phot_rp_mean_flux_over_error")
+    assert main(["fit", str(tmp_path / "gaia.ecsv"), "--columns", cols] + common) == 0
+    got = json.loads(capsys.readouterr().out)
+    assert got["n_stars"] == ref["n_stars"]
+    assert got["mass_loss"]["median"] == pytest.approx(ref["mass_loss"]["median"], rel=1e-6)
+    wrong = cols.replace("G_flux_over_error", "G_err").replace("rp_flux_over_error", "RP_err")
+    assert main(["fit", str(tmp_path / "gaia.ecsv"), "--columns", wrong] + common) == 2
+    assert "flux over error" in capsys.readouterr().err

@@ -388,3 +388,25 @@ def test_fuzz_random_column_sets(cols, nrow, ext, required, seed):
             assert all(out[r].dtype.kind in "iuf" for r in required)
         elif nrow > 0 and all(r in cols and cols[r] != "str" for r in required):
             pytest.fail(f"valid {ext} table with columns {cols} was rejected")
+
+
+def test_declared_flux_over_error_becomes_a_magnitude_error(tmp_path):
+    # sigma_mag = 2.5 / ln 10 * sigma_F / F (first-order error propagation, common practice): a Gaia-style
+    # signal-to-noise of 100 is a 0.010857 mag error; a non-positive or missing ratio is a missing error.
+    snr = np.array([100.0, 1085.7, 0.0, np.nan, 20.0])
+    t = Table({"phot_g_mean_mag": [15.0, 12.0, 18.0, 17.0, 19.0], "phot_g_mean_flux_over_error": snr})
+    p = tmp_path / "gaia.ecsv"
+    t.write(p)
+    cols = {"G": "phot_g_mean_mag", "G_flux_over_error": "phot_g_mean_flux_over_error"}
+    out = hio.read_catalog(p, columns=cols, required=["G", "G_err"])
+    err = np.asarray(out["G_err"])
+    assert err[0] == pytest.approx(0.0108574, rel=1e-5) and err[1] == pytest.approx(0.001, rel=1e-4)
+    assert np.isnan(err[2]) and np.isnan(err[3]) and err[4] == pytest.approx(0.0542868, rel=1e-5)
+    # undeclared, the ratio is not an error column (the fit's unit check refuses it if mapped as one)
+    with pytest.raises(ValueError, match="G_err"):
+        hio.read_catalog(p, columns={"G": "phot_g_mean_mag"}, required=["G", "G_err"])
+    # declared next to a real error column: ambiguous, refused in one line
+    t["G_err"] = 0.01
+    t.write(p, overwrite=True)
+    with pytest.raises(ValueError, match="given twice"):
+        hio.read_catalog(p, columns=cols, required=["G", "G_err"])
