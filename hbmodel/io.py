@@ -36,10 +36,12 @@ headers carry mtime 0; figures carry no creation date).
 """
 from __future__ import annotations
 
+import contextlib
 import gzip
 import json
 import math
 import os
+import shutil
 import tempfile
 import warnings
 from collections.abc import Mapping, Sequence
@@ -60,6 +62,7 @@ __all__ = [
     "atomic_write_json",
     "atomic_savefig",
     "prepare_out_dir",
+    "staged_out_dir",
 ]
 
 #: extension -> (astropy format name, human label) for reading.
@@ -677,4 +680,37 @@ def prepare_out_dir(path, *, force: bool = False) -> Path:
         path.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise ValueError(f"cannot create output directory {path}: {_one_line(exc)}") from None
+    return path
+
+
+@contextlib.contextmanager
+def staged_out_dir(path, *, force: bool = False):
+    """All-or-nothing result directory: yield a new temporary directory beside ``path`` to write every
+    file into; when the block succeeds, the directory becomes ``path`` (one rename when ``path`` is new
+    or empty; with ``force`` into an existing non-empty directory, file by file with :func:`os.replace`,
+    nothing else in it touched); when the block fails, it is removed and ``path`` is left as it was.
+    ``path`` is checked first like :func:`prepare_out_dir`."""
+    path = check_output_dir(path, force=force)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{path.name}.", suffix=".partial", dir=path.parent))
+        os.chmod(tmp, 0o777 & ~_umask())
+    except OSError as exc:
+        raise ValueError(f"cannot create output directory {path}: {_one_line(exc)}") from None
+    try:
+        yield tmp
+        if path.is_dir() and not any(path.iterdir()):
+            path.rmdir()
+        if not path.exists():
+            os.rename(tmp, path)
+        else:
+            for entry in sorted(tmp.iterdir()):
+                target = path / entry.name
+                if target.is_dir() and not entry.is_dir():
+                    raise ValueError(f"cannot write {target}: it is an existing directory")
+                os.replace(entry, target)
+            tmp.rmdir()
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
     return path

@@ -173,6 +173,21 @@ def test_cli_json_and_out_dir(tmp_path, capsys):
     assert (out / "result.json").read_bytes() == before
 
 
+def test_cli_out_dir_is_all_or_nothing(tmp_path, capsys, monkeypatch):
+    # a failure while writing the products (here the posterior-predictive figure) leaves no half-written
+    # result directory behind (behaviour: the products are staged and renamed into place at the end)
+    import hbmodel.plots
+    path = _write_mock(tmp_path)
+    out = tmp_path / "res"
+
+    def broken(*a, **k):
+        raise RuntimeError("figure failed")
+    monkeypatch.setattr(hbmodel.plots, "plot_posterior_predictive", broken)
+    assert main(["fit", str(path), *BASE, "--no-compare", "--ebv-spread", "none", "--out", str(out)]) != 0
+    assert "figure failed" in capsys.readouterr().err
+    assert not out.exists() and not list(tmp_path.glob(".res*"))
+
+
 @pytest.mark.parametrize("mutate,msg", [
     (lambda t: t.remove_column("I_err"), "I_err"),
     # missing values are dropped and counted (issue 15's one policy), but not two thirds of the catalogue

@@ -237,6 +237,35 @@ def test_prepare_out_dir(tmp_path):
         hio.prepare_out_dir(d / "result.json")
 
 
+def test_staged_out_dir_is_all_or_nothing(tmp_path):
+    # a multi-file result appears whole or not at all; an existing user's file is never lost
+    d = tmp_path / "a" / "res"
+    with hio.staged_out_dir(d) as stage:
+        hio.atomic_write_json(stage / "result.json", {"x": 1})
+        hio.atomic_write_text(stage / "report.md", "# r\n")
+        assert not d.exists()  # nothing at the target before the block ends
+    assert sorted(p.name for p in d.iterdir()) == ["report.md", "result.json"]
+    assert oct(d.stat().st_mode & 0o777) == oct(0o777 & ~hio._umask())
+    with pytest.raises(ValueError, match="not empty; use --force"):
+        with hio.staged_out_dir(d):
+            pass
+    (d / "mine.txt").write_text("keep")
+    with pytest.raises(RuntimeError):
+        with hio.staged_out_dir(d, force=True) as stage:
+            hio.atomic_write_json(stage / "result.json", {"x": 2})
+            raise RuntimeError("plot failed")
+    assert json.loads((d / "result.json").read_text()) == {"x": 1}       # untouched by the failed run
+    with hio.staged_out_dir(d, force=True) as stage:
+        hio.atomic_write_json(stage / "result.json", {"x": 3})
+    assert json.loads((d / "result.json").read_text()) == {"x": 3} and (d / "mine.txt").read_text() == "keep"
+    new = tmp_path / "new"
+    with pytest.raises(RuntimeError):
+        with hio.staged_out_dir(new) as stage:
+            hio.atomic_write_text(stage / "half.md", "x")
+            raise RuntimeError("boom")
+    assert not new.exists() and not any(".partial" in p.name for p in tmp_path.iterdir())
+
+
 # --------------------------------------------------------------------------- #
 # reading errors
 # --------------------------------------------------------------------------- #

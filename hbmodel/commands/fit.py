@@ -68,7 +68,7 @@ def _columns(text):
 
 def run(args):
     from ..fit import MassLossFit, Priors
-    from ..io import prepare_out_dir, read_catalog
+    from ..io import read_catalog, staged_out_dir
     from ..photometry import parse_bands
     from ..population import Population
     from ..quantities import unit_of
@@ -124,13 +124,14 @@ def run(args):
     res = est.result()
     if args.out:
         from ..reports import run_record, save_fit_products
-        out_dir = prepare_out_dir(args.out, force=args.force)
-        save_fit_products(est, out_dir, title=f"Mass-loss fit: {args.catalog or args.masses}", force=args.force,
-                          config=run_record("fit", args),
-                          inputs={"catalog": args.catalog, "masses": args.masses, "bands": ",".join(bands),
-                                  "colour": "-".join(est.colour_),
-                                  "[Fe/H]": args.feh, "[alpha/Fe]": args.alpha_fe, "age [Gyr]": args.age,
-                                  "helium": args.helium, "model": est.model, "stars in region": est.n_stars_})
+        with staged_out_dir(args.out, force=args.force) as stage:  # every product, or none
+            save_fit_products(est, stage, title=f"Mass-loss fit: {args.catalog or args.masses}",
+                              config=run_record("fit", args),
+                              inputs={"catalog": args.catalog, "masses": args.masses, "bands": ",".join(bands),
+                                      "colour": "-".join(est.colour_),
+                                      "[Fe/H]": args.feh, "[alpha/Fe]": args.alpha_fe, "age [Gyr]": args.age,
+                                      "helium": args.helium, "model": est.model, "stars in region": est.n_stars_})
+        out_dir = args.out
     if args.json:
         print(dumps(res))
         return 0
