@@ -457,9 +457,14 @@ class CMDLikelihood:
             self.shift_lo, self.shift_hi = self.shift_lo - ext, self.shift_hi + ext
         self._build_norm_tables(n_shift)
 
+    #: Fractions of the largest spread for which zero-padded transform sizes are prepared: a batch of
+    #: walkers uses the smallest that holds its largest spread (smaller transforms when spreads are small).
+    _BLUR_LEVELS = (0.25, 0.5, 1.0)
+
     def _setup_blur(self, vec, spread_max):
-        """Fourier multiplier of the differential-reddening convolution (see the module docstring):
-        ``q`` such that the multiplier is exp(-sd^2 q), on an image zero-padded by 4.5 sd_max |v| pixels."""
+        """Fourier multipliers of the differential-reddening convolution (see the module docstring):
+        per level L of :data:`_BLUR_LEVELS`, ``(q, shape)`` such that the multiplier is exp(-sd^2 q) on an
+        image zero-padded by 4.5 L sd_max |v| pixels (no wrap-around for sd <= L sd_max)."""
         self._blur_q = None
         self.spread_max = spread_max
         self.reddening_vector = None
@@ -468,13 +473,14 @@ class CMDLikelihood:
         s = self.s
         nm, nc = s.shape
         um, uc = float(vec[1]) / s.dm, float(vec[0]) / s.dc   # pixels per unit E(B-V): rows (mag), columns
-        pm = int(np.ceil(4.5 * spread_max * abs(um))) + 2
-        pc = int(np.ceil(4.5 * spread_max * abs(uc))) + 2
-        shape = (sfft.next_fast_len(nm + pm, real=True), sfft.next_fast_len(nc + pc, real=True))
-        fm = np.fft.fftfreq(shape[0])[:, None]
-        fc = np.fft.rfftfreq(shape[1])[None, :]
-        self._blur_q = (2.0 * np.pi ** 2 * (um * fm + uc * fc) ** 2).astype(np.float32)
-        self._blur_shape = shape
+        self._blur_q = {}
+        for level in self._BLUR_LEVELS:
+            pm = int(np.ceil(4.5 * level * spread_max * abs(um))) + 2
+            pc = int(np.ceil(4.5 * level * spread_max * abs(uc))) + 2
+            shape = (sfft.next_fast_len(nm + pm, real=True), sfft.next_fast_len(nc + pc, real=True))
+            fm = np.fft.fftfreq(shape[0])[:, None]
+            fc = np.fft.rfftfreq(shape[1])[None, :]
+            self._blur_q[level] = ((2.0 * np.pi ** 2 * (um * fm + uc * fc) ** 2).astype(np.float32), shape)
         self.reddening_vector = (float(vec[0]), float(vec[1]))
 
     def blur(self, img, spread):
@@ -483,12 +489,16 @@ class CMDLikelihood:
         if self._blur_q is None:
             return img
         n, nm, nc = img.shape
-        sd2 = np.broadcast_to(np.asarray(spread, float) ** 2, (n,)).astype(np.float32)
+        sd = np.broadcast_to(np.abs(np.asarray(spread, float)), (n,))
+        sd2 = (sd ** 2).astype(np.float32)
         out = np.empty(img.shape, np.float32)
         for a in range(0, n, 16):  # chunks of walkers (memory)
-            f = sfft.rfft2(img[a:a + 16], s=self._blur_shape, axes=(1, 2), workers=1)
-            f *= np.exp(-sd2[a:a + 16, None, None] * self._blur_q)
-            out[a:a + 16] = sfft.irfft2(f, s=self._blur_shape, axes=(1, 2), workers=1)[:, :nm, :nc]
+            top = float(sd[a:a + 16].max()) / self.spread_max
+            level = next((lv for lv in self._BLUR_LEVELS if top <= lv), self._BLUR_LEVELS[-1])
+            q, shape = self._blur_q[level]
+            f = sfft.rfft2(img[a:a + 16], s=shape, axes=(1, 2), workers=1)
+            f *= np.exp(-sd2[a:a + 16, None, None] * q)
+            out[a:a + 16] = sfft.irfft2(f, s=shape, axes=(1, 2), workers=1)[:, :nm, :nc]
         return np.maximum(out, 0.0, out=out)
 
     def _model(self, p, blocks, sc, sm):
