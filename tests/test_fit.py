@@ -442,3 +442,25 @@ def test_cli_declared_flux_over_error_columns_fit_like_magnitude_errors(tmp_path
     wrong = cols.replace("G_flux_over_error", "G_err").replace("rp_flux_over_error", "RP_err")
     assert main(["fit", str(tmp_path / "gaia.ecsv"), "--columns", wrong] + common) == 2
     assert "flux over error" in capsys.readouterr().err
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("bands", [("V", "I"), ("G", "RP")])
+def test_issue_differential_reddening_case(bands):
+    # The issue's case: a red clump ([Fe/H] 0, 4 Gyr, 1,500 HB stars, true dM 0.082 Msun) with a star-to-star
+    # E(B-V) spread of 0.02 mag, fitted with --ebv-sd 0.02.  Before: dM 0.457 +- 0.007 (V, I), 0.133 with the
+    # mass-loss spread at its bound (G, RP).  Now the interval holds the truth within 2.5 sigma and the
+    # mass-loss spread stays off its prior bound (0.08).
+    pop = Population(0.0, 4.0, mass_loss=MassLoss.from_eta(0.3, 0.03))
+    depth = {bands[0]: 20.0, bands[1]: 19.0}
+    cat = make_mock(pop, bands=bands, rng=np.random.default_rng(21), n_hb=1500,
+                    obs=ObservationSpec(distance_modulus=10.0, ebv=0.1, ebv_sd=0.02, depth=depth))
+    hb, rgb = np.asarray(cat["phase"]) == "hb", np.asarray(cat["phase"]) == "rgb"
+    truth = float(np.max(cat["mass"][rgb]) - np.mean(cat["mass"][hb]))
+    pri = Priors(distance_modulus=(10.0, 0.05), ebv=(0.1, 0.02)).with_ebv_spread("prior")
+    r = MassLossFit(Population(0.0, 4.0), pri, bands=bands, sampler="laplace", compare_models=False,
+                    seed=0).fit(cat).result()
+    s = r["mass_loss"]
+    assert abs(s["median"] - truth) < 2.5 * 0.5 * (s["hi"] - s["lo"]), (s, truth)
+    assert r["mass_loss_sd"]["hi"] < 0.06
+    assert abs(r["ebv_spread"]["median"] - 0.02) < 0.004
