@@ -49,6 +49,9 @@ MODELS = ("spread", "helium", "both")
 #: Finite-difference step of the Laplace Hessian, in units of the optimiser's parameter steps (own choice,
 #: checked by the simulation-based calibration tests).
 _LAPLACE_STEP = 0.3
+#: Smallest drop of the log posterior 2 sigma from the MAP along the mass loss (2 for a Gaussian) below which
+#: the Laplace approximation is warned (own choice: half the Gaussian value).
+LAPLACE_MIN_DROP = 1.0
 #: Parameters reported in the summary (when present).
 REPORTED = ("mass_loss", "mass_loss_sd", "hb_mass_mean", "eta", "distance_modulus", "ebv", "ebv_spread",
             "helium_fraction",
@@ -622,6 +625,21 @@ class MassLossFit:
         cov = np.linalg.inv(P)
         return 0.5 * (cov + cov.T)
 
+    def _laplace_check(self, names, x_map, cov):
+        """Drop of the log posterior 2 sigma either side of the MAP along the mass loss (moving the other
+        parameters along their Laplace regression on it, kept inside their prior box): 2.0 each for a Gaussian posterior.  A drop below
+        1 means a flatter posterior or another mode there (e.g. a red clump, whose luminosity hardly depends
+        on the mass): the Laplace intervals are then too narrow."""
+        f = self._log_post_fn(names)
+        step = 2.0 * cov[:, 0] / np.sqrt(cov[0, 0])
+        pts = np.array([x_map, x_map - step, x_map + step])
+        for i, n in enumerate(names[1:], start=1):  # the others stay inside their prior box
+            lo, hi = self._bnds[n]
+            pts[:, i] = np.clip(pts[:, i], lo, hi)
+        vals = f(pts)
+        drops = vals[0] - vals[1:]
+        return {"drop_minus_2sigma": float(drops[0]), "drop_plus_2sigma": float(drops[1])}
+
     def _laplace_draws(self, names, x_map, cov, rng, n=4000):
         """Draws of the Laplace Gaussian truncated to the prior box (rejection, then clipping)."""
         lo = np.array([self._bnds[nm][0] for nm in names], float)
@@ -700,6 +718,7 @@ class MassLossFit:
             self.n_eff_ = float(len(chain))
             self.n_steps_ = 0
             self.laplace_cov_ = cov
+            self.laplace_check_ = self._laplace_check(names, x_map, cov)
         else:
             chain = self._run_emcee(names, x_map, rng)
         self.chain_theta_ = chain
@@ -905,7 +924,9 @@ class MassLossFit:
             "region": list(self._user_region(self.region_)) if self._has_cmd else None,
             "convergence": {"autocorr_time": self.autocorr_time_, "n_eff": self.n_eff_,
                             "acceptance": self.acceptance_fraction_, "n_steps": self.n_steps_,
-                            "converged": self.converged_},
+                            "converged": self.converged_,
+                            "laplace_check": getattr(self, "laplace_check_", None) if self.sampler == "laplace"
+                            else None},
             "model_comparison": self.comparison_,
             "zero_point_sensitivity": self.zero_point_sensitivity_,
             "map": self.map_params_, "max_log_likelihood": self.max_log_likelihood_,
@@ -965,6 +986,11 @@ class MassLossFit:
         out = []
         if not self.converged_:
             out.append("the chain has not converged (raise --max-steps); intervals are unreliable")
+        chk = getattr(self, "laplace_check_", None) if self.sampler == "laplace" else None
+        if chk is not None and min(chk.values()) < LAPLACE_MIN_DROP:
+            out.append(f"the posterior of mass_loss is not Gaussian (log posterior drops by "
+                       f"{min(chk.values()):.2f} instead of 2 at 2 sigma from the MAP, or another mode lies there): "
+                       f"the Laplace intervals are too narrow; use the emcee sampler")
         chain = np.asarray(self.chain_theta_, float)
         for i, n in enumerate(self.param_names_):
             lo, hi = self._bnds[n]
