@@ -660,6 +660,7 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
         raise ValueError(f"task must be callable, got {type(task).__name__}")
     rows = _jobs_as_dicts(jobs)
     out_dir = pathlib.Path(out_dir)
+    check_batch_out_dir(out_dir, [job["name"] for job in rows])
     _prepare_out_dir(out_dir, _BATCH_MARKER)
 
     records: dict[str, dict] = {}
@@ -696,12 +697,50 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
             bar.close()
 
     summary = _summary_table([records[j["name"]] for j in rows])
-    with _atomic_path(out_dir / "summary.ecsv") as tmp:
-        summary.write(tmp, format="ascii.ecsv", overwrite=True)
-    with _atomic_path(out_dir / "summary.csv") as tmp:
-        summary.write(tmp, format="ascii.csv", overwrite=True)
-    _summary_plot(summary, out_dir / "summary.png")
+    # the three summary files together or not at all: each goes to a temporary file first, and the
+    # renames onto the final names happen only once all three are written
+    with contextlib.ExitStack() as stack:
+        ecsv, csv, png = (stack.enter_context(_atomic_path(out_dir / n)) for n in SUMMARY_FILES)
+        summary.write(ecsv, format="ascii.ecsv", overwrite=True)
+        summary.write(csv, format="ascii.csv", overwrite=True)
+        summary_figure(summary).savefig(png, format="png", dpi=110)
     return summary
+
+
+#: The summary files of a batch directory (written together at the end of a run).
+SUMMARY_FILES = ("summary.ecsv", "summary.csv", "summary.png")
+
+
+def check_batch_out_dir(out_dir, names=()) -> pathlib.Path:
+    """Raise a one-line ``ValueError`` now, before any job runs, if the batch could not write its results
+    into ``out_dir``: a path that is a file, a non-empty directory not made by hbmodel batch, a directory
+    that cannot be created or written, a job directory (``<out>/<name>``) that is an existing file, or a
+    summary file name taken by a directory.  Nothing is created."""
+    out_dir = pathlib.Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise ValueError(f"output path exists and is not a directory: {out_dir}")
+    if out_dir.is_dir():
+        if any(out_dir.iterdir()) and not (out_dir / _BATCH_MARKER).exists():
+            raise ValueError(f"output directory {out_dir} is not empty and was not made by hbmodel "
+                             "batch; choose a new or empty directory")
+        if not os.access(out_dir, os.W_OK | os.X_OK):
+            raise ValueError(f"output directory {out_dir} is not writable")
+        for name in names:
+            p = out_dir / str(name)
+            if p.exists() and not p.is_dir():
+                raise ValueError(f"job {name!r}: {p} exists and is not a directory (its results go there)")
+        for name in SUMMARY_FILES:
+            if (out_dir / name).is_dir():
+                raise ValueError(f"cannot write {out_dir / name}: it is an existing directory")
+    else:
+        parent = out_dir.parent
+        while not parent.exists() and parent != parent.parent:
+            parent = parent.parent
+        if not parent.is_dir():
+            raise ValueError(f"cannot create output directory {out_dir}: {parent} is not a directory")
+        if not os.access(parent, os.W_OK | os.X_OK):
+            raise ValueError(f"cannot create output directory {out_dir}: {parent} is not writable")
+    return out_dir
 
 
 def _summary_table(records: list[dict]):
@@ -731,13 +770,6 @@ def _summary_table(records: list[dict]):
     table.meta["comments"] = ["hbmodel batch summary: one row per job; <key>_lo/<key>_hi are "
                               "interval endpoints of <key>"]
     return table
-
-
-def _summary_plot(summary, path: pathlib.Path, max_panels: int = 12) -> None:
-    """Write :func:`summary_figure` to ``path`` (PNG), atomically."""
-    fig = summary_figure(summary, max_panels)
-    with _atomic_path(path) as tmp:
-        fig.savefig(tmp, format="png", dpi=110)
 
 
 def summary_figure(summary, max_panels: int = 12):

@@ -49,8 +49,12 @@ MODELS = ("spread", "helium", "both")
 #: Finite-difference step of the Laplace Hessian, in units of the optimiser's parameter steps (own choice,
 #: checked by the simulation-based calibration tests).
 _LAPLACE_STEP = 0.3
+#: Smallest drop of the log posterior 2 sigma from the MAP along the mass loss (2 for a Gaussian) below which
+#: the Laplace approximation is warned (own choice: half the Gaussian value).
+LAPLACE_MIN_DROP = 1.0
 #: Parameters reported in the summary (when present).
-REPORTED = ("mass_loss", "mass_loss_sd", "hb_mass_mean", "eta", "distance_modulus", "ebv", "helium_fraction",
+REPORTED = ("mass_loss", "mass_loss_sd", "hb_mass_mean", "eta", "distance_modulus", "ebv", "ebv_spread",
+            "helium_fraction",
             "delta_y", "age", "field_fraction", "colour_offset", "mag_offset", "rgb_mass_sd")
 
 
@@ -68,12 +72,17 @@ def _interval(name, lo_hi):
     return lo, hi
 
 
+#: Largest star-to-star E(B-V) spread (mag) a fit may explore (own choice: larger differential reddening
+#: smears the clump into the RGB and is better corrected with a reddening map first).
+EBV_SPREAD_MAX = 0.25
+
 #: Valid bounds ``(lo, hi, hi included)`` of the uniform prior ranges: fractions lie in [0, 1] (the field
 #: fraction below 1, a catalogue of field stars only has no population to fit); the helium enrichment
 #: is modelled up to 0.15.
 _UNIFORM_BOUNDS = {"mass_loss": (0.0, np.inf, False), "mass_loss_sd": (0.0, np.inf, False),
                    "helium_fraction": (0.0, 1.0, True), "delta_y": (0.0, 0.15, True),
-                   "field_fraction": (0.0, 1.0, False), "rgb_mass_sd": (0.0, np.inf, False)}
+                   "field_fraction": (0.0, 1.0, False), "rgb_mass_sd": (0.0, np.inf, False),
+                   "ebv_spread": (0.0, EBV_SPREAD_MAX, True)}
 
 
 @dataclass(frozen=True)
@@ -83,6 +92,11 @@ class Priors:
     ``distance_modulus`` is needed for a CMD fit (the model must be placed); ``ebv`` defaults to N(0, 0.02);
     ``age_sd_gyr`` None fixes the age at the population's; ``mass_loss`` defaults to [0, envelope mass];
     zero-point widths default to 0.02 / 0.03 mag (``zero_points=False`` in :class:`MassLossFit` fixes them).
+
+    Differential reddening: ``ebv_spread`` = (lo, hi) is the range of the star-to-star E(B-V) spread (sd,
+    mag), a nuisance parameter of the CMD fit; ``ebv_spread_sd`` makes its prior half-normal of that scale
+    (uniform in the range when None).  ``ebv_spread=None`` (default) assumes no differential reddening.
+    :meth:`with_ebv_spread` builds the usual choices.
     """
 
     distance_modulus: tuple | None = None
@@ -96,6 +110,21 @@ class Priors:
     colour_offset_sd: float | None = None
     mag_offset_sd: float | None = None
     rgb_mass_sd: tuple = (0.0, 0.1)
+    ebv_spread: tuple | None = None
+    ebv_spread_sd: float | None = None
+
+    def with_ebv_spread(self, mode):
+        """These priors with a differential-reddening spread: ``"prior"`` -- half-normal of scale the E(B-V)
+        prior width (the mean's uncertainty sets the scale of the star-to-star scatter too), up to four times
+        it; a positive number -- half-normal of that scale, up to four times it; ``"free"`` -- uniform on
+        [0, EBV_SPREAD_MAX]; ``"none"`` or None -- no differential reddening."""
+        import dataclasses
+        if mode is None or mode == "none":
+            return dataclasses.replace(self, ebv_spread=None, ebv_spread_sd=None)
+        if mode == "free":
+            return dataclasses.replace(self, ebv_spread=(0.0, EBV_SPREAD_MAX), ebv_spread_sd=None)
+        scale = float(self.ebv[1]) if mode == "prior" else _pos_width("ebv_spread", mode)
+        return dataclasses.replace(self, ebv_spread=(0.0, min(4.0 * scale, EBV_SPREAD_MAX)), ebv_spread_sd=scale)
 
     def __post_init__(self):
         if self.distance_modulus is not None:
@@ -116,7 +145,7 @@ class Priors:
             if lo < lo_ok or hi > hi_ok or (hi == hi_ok and not closed):
                 valid = f"[{lo_ok:g}, {hi_ok:g}{']' if closed else ')'}"
                 raise ValueError(f"prior range of {name} [{lo:g}, {hi:g}] must lie within {valid}")
-        for name in ("colour_offset_sd", "mag_offset_sd"):
+        for name in ("colour_offset_sd", "mag_offset_sd", "ebv_spread_sd"):
             if getattr(self, name) is not None:
                 _pos_width(name, getattr(self, name))
 
@@ -339,8 +368,12 @@ class MassLossFit:
         em = self.error_model or ErrorModel.from_catalog({b: mags[b][near] for b in bands},
                                                          {b: errs[b][near] for b in bands})
         self.error_model_ = em
-        pad_c = 4.0 * s_sd[0] + 0.15
-        pad_m = 4.0 * s_sd[1] + 0.15
+        # differential reddening: stars move along the reddening vector; the images reach two of the
+        # largest spreads further so that stars scattered into the region from outside are modelled
+        red_vec = np.array([r1 - r2, r1])
+        spread_hi = float(pri.ebv_spread[1]) if pri.ebv_spread is not None else 0.0
+        pad_c = 4.0 * s_sd[0] + 0.15 + 2.0 * spread_hi * abs(red_vec[0])
+        pad_m = 4.0 * s_sd[1] + 0.15 + 2.0 * spread_hi * abs(red_vec[1])
         self._shift_lo = s_mu - 4.0 * s_sd
         self._shift_hi = s_mu + 4.0 * s_sd
         col_range = (region[0] - s_mu[0] - pad_c, region[1] - s_mu[0] + pad_c)
@@ -354,7 +387,8 @@ class MassLossFit:
                                           pixel=pixel_for_errors(np.hypot(errs[bands[0]][inr],
                                                                           errs[bands[1]][inr])))
         self.likelihood_ = CMDLikelihood(self.surrogate_, colour[inr], mag[inr], region, self.completeness,
-                                         shift_lo=self._shift_lo, shift_hi=self._shift_hi)
+                                         shift_lo=self._shift_lo, shift_hi=self._shift_hi,
+                                         reddening_vector=red_vec, spread_max=spread_hi)
         self.data_ = {"colour": colour[inr], "mag": mag[inr]}
 
     def _prepare_masses(self, masses):
@@ -393,7 +427,10 @@ class MassLossFit:
         if self._age_free:
             names.append("age")
         if self._has_cmd:
-            names += ["field_fraction", "shift_colour", "shift_mag"]
+            names.append("field_fraction")
+            if self._pri.ebv_spread is not None:
+                names.append("ebv_spread")
+            names += ["shift_colour", "shift_mag"]
         if self._has_masses:
             names.append("rgb_mass_sd")
         return names
@@ -430,6 +467,8 @@ class MassLossFit:
         if self._has_cmd:
             d = np.stack([p["shift_colour"], p["shift_mag"]], axis=1) - self._shift_mu
             lp = lp - 0.5 * np.einsum("ni,ij,nj->n", d, self._shift_icov, d)
+        if "ebv_spread" in p and self._pri.ebv_spread_sd is not None:  # half-normal
+            lp = lp - 0.5 * (p["ebv_spread"] / self._pri.ebv_spread_sd) ** 2
         return lp
 
     def _log_like_masses(self, p):
@@ -480,6 +519,7 @@ class MassLossFit:
             lo, hi = self._bnds[n]
             x0.append({"mass_loss_sd": min(0.015, hi), "helium_fraction": 0.3, "delta_y": 0.03,
                        "field_fraction": min(0.03, hi), "rgb_mass_sd": min(0.02, hi), "age": self.age0_,
+                       "ebv_spread": min(0.01, 0.5 * hi),
                        "shift_colour": self._shift_mu[0] if self._has_cmd else 0,
                        "shift_mag": self._shift_mu[1] if self._has_cmd else 0}.get(n, 0.5 * (lo + hi)))
         x0 = np.array(x0, float)
@@ -495,7 +535,7 @@ class MassLossFit:
 
     def _steps(self, names):
         st = {"mass_loss": 0.01, "mass_loss_sd": 0.006, "helium_fraction": 0.1, "delta_y": 0.01, "age": 0.3,
-              "field_fraction": 0.01, "rgb_mass_sd": 0.01}
+              "field_fraction": 0.01, "rgb_mass_sd": 0.01, "ebv_spread": 0.004}
         out = []
         for n in names:
             if n == "shift_colour":
@@ -585,6 +625,21 @@ class MassLossFit:
         cov = np.linalg.inv(P)
         return 0.5 * (cov + cov.T)
 
+    def _laplace_check(self, names, x_map, cov):
+        """Drop of the log posterior 2 sigma either side of the MAP along the mass loss (moving the other
+        parameters along their Laplace regression on it, kept inside their prior box): 2.0 each for a Gaussian posterior.  A drop below
+        1 means a flatter posterior or another mode there (e.g. a red clump, whose luminosity hardly depends
+        on the mass): the Laplace intervals are then too narrow."""
+        f = self._log_post_fn(names)
+        step = 2.0 * cov[:, 0] / np.sqrt(cov[0, 0])
+        pts = np.array([x_map, x_map - step, x_map + step])
+        for i, n in enumerate(names[1:], start=1):  # the others stay inside their prior box
+            lo, hi = self._bnds[n]
+            pts[:, i] = np.clip(pts[:, i], lo, hi)
+        vals = f(pts)
+        drops = vals[0] - vals[1:]
+        return {"drop_minus_2sigma": float(drops[0]), "drop_plus_2sigma": float(drops[1])}
+
     def _laplace_draws(self, names, x_map, cov, rng, n=4000):
         """Draws of the Laplace Gaussian truncated to the prior box (rejection, then clipping)."""
         lo = np.array([self._bnds[nm][0] for nm in names], float)
@@ -663,6 +718,7 @@ class MassLossFit:
             self.n_eff_ = float(len(chain))
             self.n_steps_ = 0
             self.laplace_cov_ = cov
+            self.laplace_check_ = self._laplace_check(names, x_map, cov)
         else:
             chain = self._run_emcee(names, x_map, rng)
         self.chain_theta_ = chain
@@ -868,7 +924,9 @@ class MassLossFit:
             "region": list(self._user_region(self.region_)) if self._has_cmd else None,
             "convergence": {"autocorr_time": self.autocorr_time_, "n_eff": self.n_eff_,
                             "acceptance": self.acceptance_fraction_, "n_steps": self.n_steps_,
-                            "converged": self.converged_},
+                            "converged": self.converged_,
+                            "laplace_check": getattr(self, "laplace_check_", None) if self.sampler == "laplace"
+                            else None},
             "model_comparison": self.comparison_,
             "zero_point_sensitivity": self.zero_point_sensitivity_,
             "map": self.map_params_, "max_log_likelihood": self.max_log_likelihood_,
@@ -928,6 +986,11 @@ class MassLossFit:
         out = []
         if not self.converged_:
             out.append("the chain has not converged (raise --max-steps); intervals are unreliable")
+        chk = getattr(self, "laplace_check_", None) if self.sampler == "laplace" else None
+        if chk is not None and min(chk.values()) < LAPLACE_MIN_DROP:
+            out.append(f"the posterior of mass_loss is not Gaussian (log posterior drops by "
+                       f"{min(chk.values()):.2f} instead of 2 at 2 sigma from the MAP, or another mode lies there): "
+                       f"the Laplace intervals are too narrow; use the emcee sampler")
         chain = np.asarray(self.chain_theta_, float)
         for i, n in enumerate(self.param_names_):
             lo, hi = self._bnds[n]
@@ -936,7 +999,8 @@ class MassLossFit:
             x = chain[:, i]
             tol = 0.02 * (hi - lo)
             for side, b, near in (("lower", lo, x < lo + tol), ("upper", hi, x > hi - tol)):
-                if n in ("mass_loss_sd", "field_fraction", "helium_fraction", "delta_y") and side == "lower":
+                if n in ("mass_loss_sd", "field_fraction", "helium_fraction", "delta_y",
+                         "ebv_spread") and side == "lower":
                     continue  # zero spread / no field is a legitimate answer, not a failure
                 if np.mean(near) > 0.2:
                     out.append(f"{n} piles up on the {side} bound of its prior ({b:g}): the model cannot "

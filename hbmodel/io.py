@@ -20,6 +20,11 @@ or corrupt file, empty table, missing or non-numeric required columns -- is a
 Rows are never dropped: missing values in numeric columns become NaN, and the
 helpers :func:`finite_rows` and :func:`check_errors` let the caller decide.
 
+A signal-to-noise column (Gaia's ``phot_g_mean_flux_over_error``) is accepted as the error of a band only
+when declared as ``<band>_flux_over_error`` in ``columns``: it becomes ``<band>_err`` =
+2.5 / ln 10 / (flux / sigma_flux) mag (first-order propagation of a flux error to a magnitude, common
+practice); a non-positive or missing ratio becomes a missing error.
+
 Writing
 -------
 Every writer here is *atomic* (the data go to a temporary file in the target
@@ -31,10 +36,12 @@ headers carry mtime 0; figures carry no creation date).
 """
 from __future__ import annotations
 
+import contextlib
 import gzip
 import json
 import math
 import os
+import shutil
 import tempfile
 import warnings
 from collections.abc import Mapping, Sequence
@@ -55,6 +62,7 @@ __all__ = [
     "atomic_write_json",
     "atomic_savefig",
     "prepare_out_dir",
+    "staged_out_dir",
 ]
 
 #: extension -> (astropy format name, human label) for reading.
@@ -200,6 +208,7 @@ def _read_catalog(path, columns, required):
         pass
     if columns:
         table = _rename(table, columns, path)
+        _flux_over_error_columns(table, columns, path)
 
     # Missing values in numeric columns -> NaN (keeps every row).
     for name in table.colnames:
@@ -225,6 +234,33 @@ def _read_catalog(path, columns, required):
     if bad:
         raise ValueError(f"catalogue {path.name}: required column(s) not numeric: {', '.join(bad)}")
     return table
+
+
+#: Suffix of a declared signal-to-noise column (flux over its error) that stands for a band's error.
+FLUX_OVER_ERROR_SUFFIX = "_flux_over_error"
+_MAG_PER_RELATIVE_FLUX = 2.5 / math.log(10.0)   # d(mag) / d(ln flux)
+
+
+def _flux_over_error_columns(table, columns: Mapping[str, str], path: Path) -> None:
+    """``<band>_err`` from each declared ``<band>_flux_over_error`` column (see the module notes)."""
+    from astropy.table import MaskedColumn
+    for canon in columns:
+        canon = str(canon)
+        if not canon.endswith(FLUX_OVER_ERROR_SUFFIX) or canon == FLUX_OVER_ERROR_SUFFIX:
+            continue
+        err = canon[: -len(FLUX_OVER_ERROR_SUFFIX)] + "_err"
+        if err in table.colnames:
+            raise ValueError(f"catalogue {path.name}: {err} is given twice (a column {err!r} and the declared "
+                             f"{canon}); map only one of them")
+        col = table[canon]
+        if col.dtype.kind not in "iuf" or col.ndim != 1:
+            raise ValueError(f"catalogue {path.name}: the declared {canon} column is not numeric ({col.dtype})")
+        snr = np.asarray(col.filled(np.nan) if isinstance(col, MaskedColumn) else col, float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sigma = np.where(np.isfinite(snr) & (snr > 0), _MAG_PER_RELATIVE_FLUX / snr, np.nan)
+        table[err] = sigma
+        table[err].unit = "mag"
+        table[err].description = f"1-sigma magnitude error from the flux over error column {columns[canon]!r}"
 
 
 def _band_alias_columns(table, required) -> None:
@@ -644,4 +680,37 @@ def prepare_out_dir(path, *, force: bool = False) -> Path:
         path.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise ValueError(f"cannot create output directory {path}: {_one_line(exc)}") from None
+    return path
+
+
+@contextlib.contextmanager
+def staged_out_dir(path, *, force: bool = False):
+    """All-or-nothing result directory: yield a new temporary directory beside ``path`` to write every
+    file into; when the block succeeds, the directory becomes ``path`` (one rename when ``path`` is new
+    or empty; with ``force`` into an existing non-empty directory, file by file with :func:`os.replace`,
+    nothing else in it touched); when the block fails, it is removed and ``path`` is left as it was.
+    ``path`` is checked first like :func:`prepare_out_dir`."""
+    path = check_output_dir(path, force=force)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{path.name}.", suffix=".partial", dir=path.parent))
+        os.chmod(tmp, 0o777 & ~_umask())
+    except OSError as exc:
+        raise ValueError(f"cannot create output directory {path}: {_one_line(exc)}") from None
+    try:
+        yield tmp
+        if path.is_dir() and not any(path.iterdir()):
+            path.rmdir()
+        if not path.exists():
+            os.rename(tmp, path)
+        else:
+            for entry in sorted(tmp.iterdir()):
+                target = path / entry.name
+                if target.is_dir() and not entry.is_dir():
+                    raise ValueError(f"cannot write {target}: it is an existing directory")
+                os.replace(entry, target)
+            tmp.rmdir()
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
     return path

@@ -24,6 +24,14 @@ Poisson form it approximates): p_i = (1 - f) c(m_i) rho(x_i - s) / Z(s) + f / A,
 Poisson Hess-diagram statistic (Dolphin 2002, eq. 10) is provided for the residual plot and a goodness-of-fit
 figure.
 
+Differential reddening: each star's E(B-V) scatters about the mean by a Gaussian of sd ``ebv_spread`` (a
+nuisance parameter), which moves it along the reddening vector v = (E(colour)/E(B-V), A_first/E(B-V)).  The
+model density is then the walker's image convolved with that 1-D Gaussian along v: done exactly (for the
+pixelised image) by a Fourier multiplier exp(-2 pi^2 sd^2 (u . f)^2), u = v in pixels, on a zero-padded image
+(no wrap-around).  Its normalisation over the region is the average of the plain one over shifts along v
+(9-node Gauss-Hermite quadrature on the shift tables, which then reach that far).  The convolution is linear,
+so it commutes with the weighted sum of basis images and is applied once per walker.
+
 Validity: two bands; a simple population (one age and composition); the region must lie brighter than the
 faint end of the modelled RGB (log L/Lsun = 0.8): fainter stars (sub-giants, main sequence) are not modelled.
 """
@@ -33,6 +41,7 @@ import functools
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import fft as sfft
 from scipy.special import ndtr
 
 from . import giant_branch as gb
@@ -46,6 +55,9 @@ __all__ = ["ErrorModel", "HBSurrogate", "CMDLikelihood", "hat_gaussian_weights",
            "hess_poisson_deviance"]
 
 _SQ2PI = np.sqrt(2.0 * np.pi)
+# Gauss-Hermite nodes/weights for the standard normal (probabilists' Hermite, weights summing to 1)
+_GH_T, _GH_W = np.polynomial.hermite_e.hermegauss(9)
+_GH_W = _GH_W / _GH_W.sum()
 
 
 @functools.lru_cache(maxsize=None)
@@ -421,7 +433,7 @@ class CMDLikelihood:
     ``completeness``: callable of the observed first-band magnitude (or None)."""
 
     def __init__(self, surrogate: HBSurrogate, colour, mag, region, completeness=None, *, shift_lo, shift_hi,
-                 n_shift=41):
+                 n_shift=41, reddening_vector=None, spread_max=0.0):
         self.s = surrogate
         self.colour = np.asarray(colour, float)
         self.mag = np.asarray(mag, float)
@@ -435,7 +447,70 @@ class CMDLikelihood:
         self._mcen = mcen
         self.shift_lo = np.asarray(shift_lo, float)
         self.shift_hi = np.asarray(shift_hi, float)
+        self._setup_blur(reddening_vector, float(spread_max))
+        if self._blur_q is not None:
+            # the normalisation of a convolved image is the Gauss-Hermite average of the plain one over shifts
+            # along the reddening vector: the tables reach that far, at the same shift spacing
+            ext = _GH_T.max() * self.spread_max * np.abs(np.array(self.reddening_vector))
+            width = self.shift_hi - self.shift_lo
+            n_shift = int(min(3 * n_shift, np.ceil(n_shift * np.max((width + 2 * ext) / width))))
+            self.shift_lo, self.shift_hi = self.shift_lo - ext, self.shift_hi + ext
         self._build_norm_tables(n_shift)
+
+    #: Fractions of the largest spread for which zero-padded transform sizes are prepared: a batch of
+    #: walkers uses the smallest that holds its largest spread (smaller transforms when spreads are small).
+    _BLUR_LEVELS = (0.25, 0.5, 1.0)
+
+    def _setup_blur(self, vec, spread_max):
+        """Fourier multipliers of the differential-reddening convolution (see the module docstring):
+        per level L of :data:`_BLUR_LEVELS`, ``(q, shape)`` such that the multiplier is exp(-sd^2 q) on an
+        image zero-padded by 4.5 L sd_max |v| pixels (no wrap-around for sd <= L sd_max)."""
+        self._blur_q = None
+        self.spread_max = spread_max
+        self.reddening_vector = None
+        if vec is None or not spread_max > 0:
+            return
+        s = self.s
+        nm, nc = s.shape
+        um, uc = float(vec[1]) / s.dm, float(vec[0]) / s.dc   # pixels per unit E(B-V): rows (mag), columns
+        self._blur_q = {}
+        for level in self._BLUR_LEVELS:
+            pm = int(np.ceil(4.5 * level * spread_max * abs(um))) + 2
+            pc = int(np.ceil(4.5 * level * spread_max * abs(uc))) + 2
+            shape = (sfft.next_fast_len(nm + pm, real=True), sfft.next_fast_len(nc + pc, real=True))
+            fm = np.fft.fftfreq(shape[0])[:, None]
+            fc = np.fft.rfftfreq(shape[1])[None, :]
+            self._blur_q[level] = ((2.0 * np.pi ** 2 * (um * fm + uc * fc) ** 2).astype(np.float32), shape)
+        self.reddening_vector = (float(vec[0]), float(vec[1]))
+
+    def blur(self, img, spread):
+        """Images (n, n_mag, n_col) convolved along the reddening vector with Gaussians of sd ``spread``
+        (E(B-V), per walker).  Values below zero (float rounding of the transform) are set to zero."""
+        if self._blur_q is None:
+            return img
+        n, nm, nc = img.shape
+        sd = np.broadcast_to(np.abs(np.asarray(spread, float)), (n,))
+        sd2 = (sd ** 2).astype(np.float32)
+        out = np.empty(img.shape, np.float32)
+        for a in range(0, n, 16):  # chunks of walkers (memory)
+            top = float(sd[a:a + 16].max()) / self.spread_max
+            level = next((lv for lv in self._BLUR_LEVELS if top <= lv), self._BLUR_LEVELS[-1])
+            q, shape = self._blur_q[level]
+            f = sfft.rfft2(img[a:a + 16], s=shape, axes=(1, 2), workers=1)
+            f *= np.exp(-sd2[a:a + 16, None, None] * q)
+            out[a:a + 16] = sfft.irfft2(f, s=shape, axes=(1, 2), workers=1)[:, :nm, :nc]
+        return np.maximum(out, 0.0, out=out)
+
+    def _model(self, p, blocks, sc, sm):
+        """Model images of the walkers and their normalisations over the region."""
+        img = self.s.images(None, None, None, blocks=blocks)
+        if self._blur_q is not None and p.get("ebv_spread") is not None:
+            sd = np.broadcast_to(np.asarray(p["ebv_spread"], float), sc.shape)
+            vc, vm = self.reddening_vector
+            z = sum(w * self._norm_from_tables(blocks, sc + t * sd * vc, sm + t * sd * vm)
+                    for t, w in zip(_GH_T, _GH_W))
+            return self.blur(img, sd), z
+        return img, self._norm_from_tables(blocks, sc, sm)
 
     def _build_norm_tables(self, n_shift):
         """Region integral of every basis image on a grid of shifts (bilinear in the shift afterwards)."""
@@ -535,15 +610,14 @@ class CMDLikelihood:
 
     def __call__(self, p: dict):
         """Log-likelihood for parameter arrays in ``p`` (keys: mass_loss, mass_loss_sd, age, shift_colour,
-        shift_mag, field_fraction, optional helium_fraction, delta_y); returns shape (n,)."""
+        shift_mag, field_fraction, optional helium_fraction, delta_y, ebv_spread); returns shape (n,)."""
         mu = np.atleast_1d(p["mass_loss"])
         n = mu.size
         blocks = self.s.blocks(mu, p["mass_loss_sd"], p["age"], p.get("helium_fraction"), p.get("delta_y"))
-        img = self.s.images(None, None, None, blocks=blocks)
         sc = np.broadcast_to(np.asarray(p["shift_colour"], float), (n,))
         sm = np.broadcast_to(np.asarray(p["shift_mag"], float), (n,))
         f = np.broadcast_to(np.asarray(p["field_fraction"], float), (n,))
-        z = self._norm_from_tables(blocks, sc, sm)
+        img, z = self._model(p, blocks, sc, sm)
         rho = self.density_at(img, sc, sm)
         with np.errstate(divide="ignore", invalid="ignore"):
             pm = (1 - f)[:, None] * self.c_star[None, :] * rho / z[:, None] + (f / self.area)[:, None]
@@ -558,6 +632,8 @@ class CMDLikelihood:
         pp = {k: np.atleast_1d(v)[:1] for k, v in p.items() if v is not None}
         img = self.s.images(pp["mass_loss"], pp["mass_loss_sd"], pp["age"], pp.get("helium_fraction"),
                             pp.get("delta_y"))
+        if pp.get("ebv_spread") is not None:
+            img = self.blur(img, pp["ebv_spread"])
         sc, sm, f = pp["shift_colour"], pp["shift_mag"], pp["field_fraction"]
         z = self._normalisation(img, sc, sm)
         rho = self.density_at(img, sc, sm, C.ravel(), M.ravel())[0].reshape(C.shape)

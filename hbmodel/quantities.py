@@ -13,6 +13,7 @@ QUANTITIES = {
     "distance_kpc": ("distance", "kpc", r"$d$"),
     "ebv": ("E(B − V)", "mag", r"$E(B-V)$"),
     "ebv_err": ("error of E(B − V)", "mag", r"$\sigma_{E(B-V)}$"),
+    "ebv_spread": ("differential reddening σ(E(B − V)) star to star", "mag", r"$\delta E(B-V)$"),
     "helium_fraction": ("helium-enriched fraction", "", r"$f_\mathrm{He}$"),
     "delta_y": ("helium enrichment ΔY", "", r"$\Delta Y$"),
     "age": ("age", "Gyr", "age"),

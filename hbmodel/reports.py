@@ -229,7 +229,8 @@ def markdown_to_html(text: str, base_dir=".") -> str:
 
 # ----------------------------------------------------------------------------------- fit report
 _PARAM_UNIT = {"mass_loss": "Msun", "mass_loss_sd": "Msun", "helium_fraction": "", "delta_y": "",
-               "field_fraction": "", "rgb_mass_sd": "Msun", "age": "Gyr", "shift_colour": "mag", "shift_mag": "mag"}
+               "field_fraction": "", "rgb_mass_sd": "Msun", "age": "Gyr", "shift_colour": "mag", "shift_mag": "mag",
+               "ebv_spread": "mag"}
 _PARAM_TEXT = {"shift_colour": "colour shift (E(B−V) and zero point)",
                "shift_mag": "magnitude shift (distance, extinction and zero point)"}
 
@@ -243,6 +244,9 @@ def fit_prior_rows(est) -> list[list[str]]:
         name = _PARAM_TEXT.get(n, text_label(n))
         if n == "age":
             rows.append([name, "Gaussian", f"mean {est.age0_:g}, sd {pri.age_sd_gyr:g}", unit])
+        elif n == "ebv_spread" and pri.ebv_spread_sd is not None:
+            lo, hi = est._bnds[n]
+            rows.append([name, "half-normal", f"scale {pri.ebv_spread_sd:g}, within [{lo:.4g}, {hi:.4g}]", unit])
         elif n in ("shift_colour", "shift_mag"):
             i = 0 if n == "shift_colour" else 1
             mu, sd = est._shift_mu[i], math.sqrt(est._shift_cov[i, i])

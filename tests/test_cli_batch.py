@@ -1,4 +1,5 @@
 """`hbmodel batch` wired to the real distance task: results, failure isolation, resume."""
+import os
 import subprocess
 import sys
 
@@ -82,3 +83,48 @@ def test_batch_band_alias_is_stored_canonical(tmp_path):
     (tmp_path / "j.csv").write_text("name,catalog,band,feh,age_min,age_max,ebv\nF,f.ecsv,k,0,1,10,0.1\n")
     t = read_jobs(tmp_path / "j.csv", schema=JOB_SCHEMAS["distance"])
     assert list(t["band"]) == ["Ks"] and float(t["age_max"][0]) == 10.0
+
+
+def test_batch_output_problems_are_refused_before_any_job_runs(tmp_path, capsys):
+    # Every output path is checked before any work (behaviour): a job directory taken by a file, a summary
+    # name taken by a directory, an unwritable directory -- one-line error, exit 2, no job run.
+    from hbmodel.cli import main
+    (tmp_path / "j.csv").write_text("name,catalog,band,feh,age,ebv\nF1,nothere.ecsv,I,0,4,0.1\n")
+    out = tmp_path / "o"
+    out.mkdir()
+    (out / ".hbmodel-batch").write_text("hbmodel batch output directory\n")
+    (out / "F1").write_text("a file where the job's directory goes")
+    args = ["batch", str(tmp_path / "j.csv"), "--task", "distance", "--out", str(out)]
+    assert main(args) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "F1" in err and "not a directory" in err
+    assert not (out / "summary.ecsv").exists()
+    (out / "F1").unlink()
+    (out / "summary.png").mkdir()
+    assert main(args) == 2
+    assert "summary.png" in capsys.readouterr().err and not (out / "F1").exists()
+    (out / "summary.png").rmdir()
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    ro.chmod(0o555)
+    try:
+        if not os.access(ro, os.W_OK):  # (root may write anyway)
+            assert main(["batch", str(tmp_path / "j.csv"), "--task", "distance", "--out", str(ro / "x")]) == 2
+            assert "not writable" in capsys.readouterr().err
+    finally:
+        ro.chmod(0o755)
+
+
+def test_batch_summary_files_are_written_together(tmp_path, monkeypatch):
+    # all-or-nothing: a failure while making the summary figure leaves no summary file at all
+    import hbmodel.batch as hb
+    from astropy.table import Table as T
+
+    def task(job, job_dir):
+        return {"distance_modulus": 14.0}
+    monkeypatch.setattr(hb, "summary_figure", lambda *a, **k: (_ for _ in ()).throw(RuntimeError("figure broke")))
+    jobs = T({"name": ["a", "b"]})
+    with pytest.raises(RuntimeError, match="figure broke"):
+        hb.run_batch(jobs, task, tmp_path / "o")
+    left = sorted(p.name for p in (tmp_path / "o").iterdir())
+    assert not any(n.startswith("summary") or n.startswith(".summary") for n in left), left

@@ -114,6 +114,26 @@ def test_distance_cli_json(tmp_path):
     assert abs(d["distance_modulus"]["median"] - 14.5) < 0.06
 
 
+def test_distance_out_dir_is_all_or_nothing(tmp_path, capsys, monkeypatch):
+    # behaviour: a failure while writing the products (here the LF figure) leaves no half-written folder,
+    # and a good run writes them all
+    import hbmodel.plots
+    from hbmodel.cli import main
+    _field(5).write(tmp_path / "f.ecsv")
+    args = ["distance", str(tmp_path / "f.ecsv"), "--band", "Ks", "--feh", "0", "--age", "4"]
+    good = hbmodel.plots.plot_clump_lf
+
+    def broken(*a, **k):
+        raise RuntimeError("figure failed")
+    monkeypatch.setattr(hbmodel.plots, "plot_clump_lf", broken)
+    assert main(args + ["--out", str(tmp_path / "d")]) != 0
+    assert "figure failed" in capsys.readouterr().err
+    assert not (tmp_path / "d").exists() and not list(tmp_path.glob(".d.*"))
+    monkeypatch.setattr(hbmodel.plots, "plot_clump_lf", good)
+    assert main(args + ["--out", str(tmp_path / "d")]) == 0
+    assert {"result.json", "config.json", "lf.png", "lf.pdf", "report.md"} <= {p.name for p in (tmp_path / "d").iterdir()}
+
+
 def test_lf_fit_finds_the_bump_where_the_population_model_puts_it():
     # Behaviour: the clump-LF fit may place the RGB bump only near the population model's own bump offset.
     # In a 6 Gyr, [Fe/H] = -0.2 population the model's bump lies ~0.39 mag below the clump in I, outside the

@@ -237,6 +237,35 @@ def test_prepare_out_dir(tmp_path):
         hio.prepare_out_dir(d / "result.json")
 
 
+def test_staged_out_dir_is_all_or_nothing(tmp_path):
+    # a multi-file result appears whole or not at all; an existing user's file is never lost
+    d = tmp_path / "a" / "res"
+    with hio.staged_out_dir(d) as stage:
+        hio.atomic_write_json(stage / "result.json", {"x": 1})
+        hio.atomic_write_text(stage / "report.md", "# r\n")
+        assert not d.exists()  # nothing at the target before the block ends
+    assert sorted(p.name for p in d.iterdir()) == ["report.md", "result.json"]
+    assert oct(d.stat().st_mode & 0o777) == oct(0o777 & ~hio._umask())
+    with pytest.raises(ValueError, match="not empty; use --force"):
+        with hio.staged_out_dir(d):
+            pass
+    (d / "mine.txt").write_text("keep")
+    with pytest.raises(RuntimeError):
+        with hio.staged_out_dir(d, force=True) as stage:
+            hio.atomic_write_json(stage / "result.json", {"x": 2})
+            raise RuntimeError("plot failed")
+    assert json.loads((d / "result.json").read_text()) == {"x": 1}       # untouched by the failed run
+    with hio.staged_out_dir(d, force=True) as stage:
+        hio.atomic_write_json(stage / "result.json", {"x": 3})
+    assert json.loads((d / "result.json").read_text()) == {"x": 3} and (d / "mine.txt").read_text() == "keep"
+    new = tmp_path / "new"
+    with pytest.raises(RuntimeError):
+        with hio.staged_out_dir(new) as stage:
+            hio.atomic_write_text(stage / "half.md", "x")
+            raise RuntimeError("boom")
+    assert not new.exists() and not any(".partial" in p.name for p in tmp_path.iterdir())
+
+
 # --------------------------------------------------------------------------- #
 # reading errors
 # --------------------------------------------------------------------------- #
@@ -388,3 +417,25 @@ def test_fuzz_random_column_sets(cols, nrow, ext, required, seed):
             assert all(out[r].dtype.kind in "iuf" for r in required)
         elif nrow > 0 and all(r in cols and cols[r] != "str" for r in required):
             pytest.fail(f"valid {ext} table with columns {cols} was rejected")
+
+
+def test_declared_flux_over_error_becomes_a_magnitude_error(tmp_path):
+    # sigma_mag = 2.5 / ln 10 * sigma_F / F (first-order error propagation, common practice): a Gaia-style
+    # signal-to-noise of 100 is a 0.010857 mag error; a non-positive or missing ratio is a missing error.
+    snr = np.array([100.0, 1085.7, 0.0, np.nan, 20.0])
+    t = Table({"phot_g_mean_mag": [15.0, 12.0, 18.0, 17.0, 19.0], "phot_g_mean_flux_over_error": snr})
+    p = tmp_path / "gaia.ecsv"
+    t.write(p)
+    cols = {"G": "phot_g_mean_mag", "G_flux_over_error": "phot_g_mean_flux_over_error"}
+    out = hio.read_catalog(p, columns=cols, required=["G", "G_err"])
+    err = np.asarray(out["G_err"])
+    assert err[0] == pytest.approx(0.0108574, rel=1e-5) and err[1] == pytest.approx(0.001, rel=1e-4)
+    assert np.isnan(err[2]) and np.isnan(err[3]) and err[4] == pytest.approx(0.0542868, rel=1e-5)
+    # undeclared, the ratio is not an error column (the fit's unit check refuses it if mapped as one)
+    with pytest.raises(ValueError, match="G_err"):
+        hio.read_catalog(p, columns={"G": "phot_g_mean_mag"}, required=["G", "G_err"])
+    # declared next to a real error column: ambiguous, refused in one line
+    t["G_err"] = 0.01
+    t.write(p, overwrite=True)
+    with pytest.raises(ValueError, match="given twice"):
+        hio.read_catalog(p, columns=cols, required=["G", "G_err"])

@@ -133,13 +133,17 @@ def parse_floats(text, n, what):
 
 
 def canonical_columns(mapping: dict | None) -> dict | None:
-    """A ``--columns`` mapping with band keys (and ``<band>_err``) under their canonical band names."""
+    """A ``--columns`` mapping with band keys (and ``<band>_err``, ``<band>_flux_over_error``) under their
+    canonical band names."""
     from ..photometry import resolve_band
     if not mapping:
         return mapping
 
     def canon(key):
-        base, err = (key[:-4], "_err") if key.endswith("_err") else (key, "")
+        base, err = key, ""
+        for suffix in ("_err", "_flux_over_error"):
+            if key.endswith(suffix):
+                base, err = key[: -len(suffix)], suffix
         try:
             return resolve_band(base) + err
         except ValueError:

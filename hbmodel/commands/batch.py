@@ -38,7 +38,8 @@ def run(args):
     if args.jobs < 1:
         raise ValueError("--jobs must be at least 1")
     jobs = read_jobs(args.jobs_table, schema=JOB_SCHEMAS[args.task])
-    from ..batch import _jobs_as_dicts
+    from ..batch import _jobs_as_dicts, check_batch_out_dir
+    check_batch_out_dir(args.out, [job["name"] for job in _jobs_as_dicts(jobs)])  # before any work
     from ..resources import batch_estimate, check_budget
     check_budget(batch_estimate(_jobs_as_dicts(jobs), args.task, n_jobs=args.jobs, scheduler=args.scheduler,
                                 out_dir=args.out), max_memory=args.max_memory, max_disk=args.max_disk)

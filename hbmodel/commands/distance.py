@@ -95,7 +95,7 @@ def _report_inputs(args) -> dict:
 
 def run(args):
     from ..clump_distance import measure_distance
-    from ..io import atomic_write_json, drop_missing, prepare_out_dir, read_catalog
+    from ..io import atomic_write_json, check_output_dir, drop_missing, read_catalog, staged_out_dir
     from ..photometry import parse_colour, resolve_band
     band = resolve_band(args.band, "--band")
     colour = parse_colour(args.color, "--color") if args.color else None
@@ -121,7 +121,7 @@ def run(args):
         if region[0] >= region[1]:
             raise ValueError("--region must be MAG_BRIGHT,MAG_FAINT with MAG_BRIGHT < MAG_FAINT")
     pop = _population(args.feh, args.alpha_fe, args.age, args.age_range, args.eta)
-    out = prepare_out_dir(args.out, force=args.force) if args.out else None
+    out = check_output_dir(args.out, force=args.force) if args.out else None  # refused now, not after the work
     ebv = None if args.reddening_from_color else (args.ebv or 0.0)
     cm = {b: np.asarray(t[b], float) for b in set(needed)} if ebv is None else None
     res = measure_distance(mag, pop, band, colour_mags=cm, colour=colour, ebv=ebv, ebv_sd=args.ebv_sd,
@@ -135,13 +135,14 @@ def run(args):
         from ..plot_style import save_figure
         from ..plots import plot_clump_lf
         from ..reports import distance_report, format_interval, run_record, write_report
-        atomic_write_json(out / "result.json", d, force=args.force)
-        atomic_write_json(out / "config.json", run_record("distance", args), force=args.force)
-        fig, _ = plot_clump_lf(mag[np.isfinite(mag)], res.lf, band=args.band,
-                               title=f"$(m-M)_0$ = {format_interval(res.distance_modulus)} mag")
-        save_figure(fig, out / "lf.png", force=args.force)
-        write_report(out / "report.md", None, force=args.force, text=distance_report(
-            res, title=f"Red-clump distance: {args.catalog}", plots=["lf.png"], inputs=_report_inputs(args)))
+        with staged_out_dir(out, force=args.force) as stage:  # every product, or none
+            atomic_write_json(stage / "result.json", d)
+            atomic_write_json(stage / "config.json", run_record("distance", args))
+            fig, _ = plot_clump_lf(mag[np.isfinite(mag)], res.lf, band=args.band,
+                                   title=f"$(m-M)_0$ = {format_interval(res.distance_modulus)} mag")
+            save_figure(fig, stage / "lf.png")
+            write_report(stage / "report.md", None, text=distance_report(
+                res, title=f"Red-clump distance: {args.catalog}", plots=["lf.png"], inputs=_report_inputs(args)))
     if args.json:
         d.pop("lf_fit")
         print(dumps(d))

@@ -34,6 +34,10 @@ def add_arguments(p):
     n.add_argument("--dm-sd", type=float, default=0.1, help="prior width of the distance modulus (default 0.1)")
     n.add_argument("--ebv", type=float, default=0.0, help="prior mean of E(B-V) (default 0)")
     n.add_argument("--ebv-sd", type=float, default=0.02, help="prior width of E(B-V) (default 0.02)")
+    n.add_argument("--ebv-spread", default="prior", metavar="prior|free|none|SD",
+                   help="differential reddening (star-to-star E(B-V) sd), a nuisance parameter: 'prior' "
+                        "(default) half-normal of scale --ebv-sd, 'free' uniform 0-0.25 mag, 'none' (no spread), "
+                        "or a number: half-normal of that scale")
     n.add_argument("--no-zero-points", action="store_true", help="fix the colour/magnitude zero points at 0")
     p.add_argument("--model", choices=("spread", "helium", "both"), default="spread",
                    help="mass-loss spread, helium spread, or both (default spread)")
@@ -67,7 +71,7 @@ def _columns(text):
 
 def run(args):
     from ..fit import MassLossFit, Priors
-    from ..io import prepare_out_dir, read_catalog
+    from ..io import read_catalog, staged_out_dir
     from ..photometry import parse_bands
     from ..population import Population
     from ..quantities import unit_of
@@ -88,6 +92,15 @@ def run(args):
         v = getattr(args, name)
         if v is not None and not (math.isfinite(v) and v > 0):
             raise ValueError(f"--{name.replace('_', '-')} must be positive: a prior of zero width (got {v:g})")
+    spread = str(args.ebv_spread).strip().lower()
+    if spread not in ("prior", "free", "none"):
+        try:
+            spread = float(spread)
+        except ValueError:
+            raise ValueError(f"--ebv-spread must be prior, free, none or a positive number (got {args.ebv_spread!r})") \
+                from None
+        if not (math.isfinite(spread) and 0 < spread <= 0.25):
+            raise ValueError(f"--ebv-spread must be a scale in (0, 0.25] mag (got {spread:g})")
     if args.max_steps < 100:
         raise ValueError("--max-steps must be at least 100")
     region = parse_floats(args.region, 4, "--region") if args.region else None
@@ -104,7 +117,7 @@ def run(args):
         raise ValueError("a CMD fit needs --distance-modulus DM (prior mean; width --dm-sd)")
     pop = Population(args.feh, args.age, alpha_fe=args.alpha_fe, helium=args.helium)
     pri = Priors(distance_modulus=None if args.distance_modulus is None else (args.distance_modulus, args.dm_sd),
-                 ebv=(args.ebv, args.ebv_sd), age_sd_gyr=args.age_sd)
+                 ebv=(args.ebv, args.ebv_sd), age_sd_gyr=args.age_sd).with_ebv_spread(spread)
     out_dir = None
     if args.out:  # refused now, not after the sampling
         from ..io import check_output_dir
@@ -117,21 +130,22 @@ def run(args):
     res = est.result()
     if args.out:
         from ..reports import run_record, save_fit_products
-        out_dir = prepare_out_dir(args.out, force=args.force)
-        save_fit_products(est, out_dir, title=f"Mass-loss fit: {args.catalog or args.masses}", force=args.force,
-                          config=run_record("fit", args),
-                          inputs={"catalog": args.catalog, "masses": args.masses, "bands": ",".join(bands),
-                                  "colour": "-".join(est.colour_),
-                                  "[Fe/H]": args.feh, "[alpha/Fe]": args.alpha_fe, "age [Gyr]": args.age,
-                                  "helium": args.helium, "model": est.model, "stars in region": est.n_stars_})
+        with staged_out_dir(args.out, force=args.force) as stage:  # every product, or none
+            save_fit_products(est, stage, title=f"Mass-loss fit: {args.catalog or args.masses}",
+                              config=run_record("fit", args),
+                              inputs={"catalog": args.catalog, "masses": args.masses, "bands": ",".join(bands),
+                                      "colour": "-".join(est.colour_),
+                                      "[Fe/H]": args.feh, "[alpha/Fe]": args.alpha_fe, "age [Gyr]": args.age,
+                                      "helium": args.helium, "model": est.model, "stars in region": est.n_stars_})
+        out_dir = args.out
     if args.json:
         print(dumps(res))
         return 0
     s = res
     dropped = f" ({est.n_dropped_} rows with a missing value dropped)" if est.n_dropped_ else ""
     print(f"hbmodel fit: model {est.model}, {est.n_stars_} stars in the region, {est.n_masses_} masses{dropped}")
-    for k in ("mass_loss", "mass_loss_sd", "hb_mass_mean", "eta", "distance_modulus", "ebv", "helium_fraction",
-              "delta_y"):
+    for k in ("mass_loss", "mass_loss_sd", "hb_mass_mean", "eta", "distance_modulus", "ebv", "ebv_spread",
+              "helium_fraction", "delta_y"):
         if k in s and s[k]["median"] is not None:
             print(f"  {k:18s} {format_interval(s[k])} {unit_of(k)}".rstrip())
     c = s["convergence"]
