@@ -145,7 +145,8 @@ class StarSampler:
         return self.population.phase_counts(n_hb, rng, PHASES, rgb_logl_range, rates=self._rates)
 
     # ------------------------------------------------------------------ draws
-    def draw(self, n_hb, rng: np.random.Generator, *, rgb_logl_range=None, distance_modulus=0.0, ebv=None):
+    def draw(self, n_hb, rng: np.random.Generator, *, rgb_logl_range=None, distance_modulus=0.0, ebv=None,
+             star_dtype=np.float64):
         """Random stars: ``n_hb`` HB stars (expected) plus their RGB and early-AGB stars.
 
         Returns a dict of equal-length arrays: ``phase`` (int codes, :data:`PHASE_CODES`), ``sub``
@@ -153,7 +154,9 @@ class StarSampler:
         ``teff``, ``logg``, ``logl``, ``rr_mode``, ``period_days``, and per band either the true
         apparent magnitude ``<band>_true`` = M + ``distance_modulus`` + ``ebv`` A/E(B-V) (scalar
         ``ebv``) or, with ``ebv=None``, ``M_<band>`` and ``R_<band>`` (absolute magnitude and
-        A_band/E(B-V)) for per-star reddening.
+        A_band/E(B-V)) for per-star reddening.  ``star_dtype`` is the type of ``mass``, ``teff``, ``logg``,
+        ``logl`` and ``period_days`` (computed in float64 and rounded once on storing, e.g. float32 for
+        a compact catalogue); magnitudes and ratios are float64.
         """
         if not isinstance(rng, np.random.Generator):
             raise ValueError("draw() needs a numpy.random.Generator")
@@ -163,10 +166,10 @@ class StarSampler:
         blocks = self.counts(n_hb, rng, rgb_logl_range)
         n = sum(b[2] for b in blocks)
         per_star = ebv is None
-        names = ["mass", "teff", "logg", "logl", "period_days"]
-        names += ([f"M_{b}" for b in self.bands] + [f"R_{b}" for b in self.bands] if per_star
-                  else [f"{b}_true" for b in self.bands])
-        out = {k: np.empty(n) for k in names}
+        out = {k: np.empty(n, star_dtype) for k in ("mass", "teff", "logg", "logl", "period_days")}
+        names = ([f"M_{b}" for b in self.bands] + [f"R_{b}" for b in self.bands] if per_star
+                 else [f"{b}_true" for b in self.bands])
+        out.update({k: np.empty(n) for k in names})
         sizes = [b[2] for b in blocks]
         out["phase"] = np.repeat(np.array([PHASE_CODES[b[1]] for b in blocks], np.int8), sizes)
         out["sub"] = np.repeat(np.array([b[0] for b in blocks], np.int16), sizes)
@@ -191,7 +194,10 @@ class StarSampler:
         v += win[0]
         loc = tab.locate(v)
         for key in ("mass", "teff", "logg", "logl"):
-            tab.get(key, *loc, out=out[key])
+            if out[key].dtype == np.float64:
+                tab.get(key, *loc, out=out[key])
+            else:  # interpolated in float64, rounded once
+                out[key][...] = tab.get(key, *loc)
         out["period_days"][...] = np.nan
         if ebv is None:
             for b in self.bands:
@@ -233,7 +239,8 @@ class StarSampler:
         out["mass"][...] = mass
         out["logl"][...] = logl
         np.power(10.0, logt, out=out["teff"])
-        logg = log_g_from_logs(log_mass, logl, logt, out=out["logg"])
+        logg = log_g_from_logs(log_mass, logl, logt)
+        out["logg"][...] = logg
         if ph == "hb":
             mode = pulsation_mode(logt, logl, mass, (l0, t0, s))
             out["rr_mode"][...] = mode
