@@ -726,7 +726,8 @@ class MassLossFit:
             n_pilot += k
             pts = pilot.get_chain()[k // 2:].reshape(-1, d)
             try:
-                prop = _IndependenceProposal(pts.mean(axis=0), np.cov(pts, rowvar=False))
+                prop = _IndependenceProposal(pts.mean(axis=0), np.cov(pts, rowvar=False),
+                                             [self._bnds[n][0] for n in names], [self._bnds[n][1] for n in names])
             except (np.linalg.LinAlgError, ValueError):
                 break
             moves = [(emcee.moves.MHMove(prop), _MH_WEIGHT), (emcee.moves.DEMove(), 1.0 - _MH_WEIGHT)]
@@ -1040,7 +1041,7 @@ class MassLossFit:
 #: Steps of the pilot runs of :meth:`MassLossFit._run_emcee` (differential evolution, then the proposal
 #: of the first) and the share of independence-proposal steps after them (measured: scripts/bench_fit.py).
 _PILOT_STEPS = (100, 50)
-_MH_WEIGHT = 0.7
+_MH_WEIGHT = 0.85
 
 
 def _burn_in(n_steps, tau, n_tau=5):
@@ -1053,26 +1054,56 @@ def _burn_in(n_steps, tau, n_tau=5):
 
 
 class _IndependenceProposal:
-    """Independence proposal of an emcee ``MHMove``: a multivariate Student t (``nu`` = 4 degrees of
+    """Independence proposal of an emcee ``MHMove``: a multivariate Student t (``nu`` degrees of
     freedom: heavier-tailed than the posterior, as an independence sampler needs; Tierney 1994, Ann.
-    Stat. 22, 1701) of centre ``mean`` and scale matrix ``cov`` (a pilot run's).  Returns the proposed
-    points and the log ratio ln q(x) - ln q(x') of the Metropolis-Hastings acceptance."""
+    Stat. 22, 1701) of centre ``mean`` and scale matrix ``cov`` (a pilot run's), folded into the prior
+    box ``lo``-``hi`` by one reflection at each bound within reach (a posterior piled against a bound,
+    e.g. no field stars, then loses no proposals to it); the folded density is the sum over the mirror
+    images.  Returns the proposed points and the log ratio ln q(x) - ln q(x') of the
+    Metropolis-Hastings acceptance."""
 
-    def __init__(self, mean, cov, nu=4.0):
+    def __init__(self, mean, cov, lo=None, hi=None, nu=10.0):
         self.mean = np.asarray(mean, float)
+        d = self.mean.size
         cov = np.atleast_2d(np.asarray(cov, float))
         self.chol = np.linalg.cholesky(cov)
         self.icov = np.linalg.inv(cov)
         self.nu = float(nu)
+        sd = np.sqrt(np.diag(cov))
+        self.lo = np.full(d, -np.inf) if lo is None else np.asarray(lo, float)
+        self.hi = np.full(d, np.inf) if hi is None else np.asarray(hi, float)
+        near = (np.isfinite(self.lo) & (self.mean - self.lo < 12 * sd)) | (np.isfinite(self.hi) & (self.hi - self.mean < 12 * sd))
+        self.fold = np.flatnonzero(near & np.isfinite(self.lo) & np.isfinite(self.hi))
+        # every combination of (identity, mirror at lo, mirror at hi) over the folded coordinates
+        self.images = np.array(np.meshgrid(*[[0, 1, 2]] * self.fold.size, indexing="ij")).reshape(self.fold.size, -1).T
+
+    def _log_t(self, x):
+        dx = x - self.mean
+        q = np.einsum("...j,jk,...k->...", dx, self.icov, dx)
+        return -0.5 * (self.nu + self.mean.size) * np.log1p(q / self.nu)
 
     def log_q(self, x):
-        dx = np.asarray(x, float) - self.mean
-        q = np.einsum("ij,jk,ik->i", dx, self.icov, dx)
-        return -0.5 * (self.nu + self.mean.size) * np.log1p(q / self.nu)
+        x = np.atleast_2d(np.asarray(x, float))
+        inside = np.all((x >= self.lo) & (x <= self.hi), axis=1)
+        if not self.fold.size:
+            return self._log_t(x)
+        lo, hi = self.lo[self.fold], self.hi[self.fold]
+        imgs = np.repeat(x[None], len(self.images), axis=0)          # (n_images, n, d)
+        v = x[:, self.fold][None]                                      # (1, n, k)
+        c = self.images[:, None, :]                                    # (n_images, 1, k)
+        imgs[:, :, self.fold] = np.where(c == 1, 2 * lo - v, np.where(c == 2, 2 * hi - v, v))
+        lt = self._log_t(imgs)                                         # (n_images, n)
+        folded = np.logaddexp.reduce(lt, axis=0)
+        return np.where(inside, folded, lt[0])
 
     def __call__(self, x0, random):
         n, d = x0.shape
         z = random.standard_normal((n, d)) @ self.chol.T
         g = random.chisquare(self.nu, n) / self.nu
         x = self.mean + z / np.sqrt(g)[:, None]
+        for i in self.fold:  # one reflection into the box (points beyond stay outside: rejected)
+            lo, hi = self.lo[i], self.hi[i]
+            xi = x[:, i]
+            xi = np.where((xi < lo) & (xi >= 2 * lo - hi), 2 * lo - xi, xi)
+            x[:, i] = np.where((xi > hi) & (xi <= 2 * hi - lo), 2 * hi - xi, xi)
         return x, self.log_q(x0) - self.log_q(x)
