@@ -1075,7 +1075,8 @@ class _IndependenceProposal:
         near = (np.isfinite(self.lo) & (self.mean - self.lo < 12 * sd)) | (np.isfinite(self.hi) & (self.hi - self.mean < 12 * sd))
         self.fold = np.flatnonzero(near & np.isfinite(self.lo) & np.isfinite(self.hi))
         # every combination of (identity, mirror at lo, mirror at hi) over the folded coordinates
-        self.images = np.array(np.meshgrid(*[[0, 1, 2]] * self.fold.size, indexing="ij")).reshape(self.fold.size, -1).T
+        self.images = (np.array(np.meshgrid(*[[0, 1, 2]] * self.fold.size, indexing="ij")).reshape(self.fold.size, -1).T
+                       if self.fold.size else np.zeros((1, 0), int))
 
     def _log_t(self, x):
         dx = x - self.mean
