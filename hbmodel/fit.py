@@ -19,7 +19,9 @@ Method
   colour-temperature calibration's uncertainty (0.02 / 0.03 mag, ``tables/fit_settings.csv``).
 * Age enters through the tip mass: HB mass = M_tip(age) - dM.
 * Sampler: emcee (Foreman-Mackey et al. 2013, PASP 125, 306, affine-invariant ensemble; Goodman & Weare 2010),
-  started around a scipy Nelder-Mead MAP; chains are extended until longer than 50 integrated
+  started from the Laplace approximation at a scipy Nelder-Mead MAP; a short differential-evolution
+  pilot shapes an independence Metropolis-Hastings proposal used for most later steps
+  (:meth:`MassLossFit._run_emcee`); chains are extended until longer than 50 integrated
   autocorrelation times (Goodman & Weare 2010, CAMCoS 5, 65; emcee's integrated-time estimator), else
   ``converged_`` is False.
   ``sampler="laplace"`` instead uses the Gaussian (Laplace) approximation at the MAP (finite-difference
