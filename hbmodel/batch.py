@@ -840,8 +840,9 @@ def _write_chunk(make_chunk: Callable, index: int, n: int, child, path: str, exa
     path = pathlib.Path(path)
     # the uncompressed Arrow size bounds the Parquet file (measured: Parquet is 0.8-1.0 of it here)
     check_free_disk(path.parent, table.nbytes, f"partition {path.name}")
+    from .io import parquet_write_options
     with _atomic_path(path) as tmp:
-        pq.write_table(table, tmp)
+        pq.write_table(table, tmp, **parquet_write_options(table.schema))
     return str(path)
 
 

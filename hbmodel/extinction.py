@@ -45,6 +45,7 @@ F99 and CCM89: use ``G23``.
 from __future__ import annotations
 
 import functools
+import sys
 
 import numpy as np
 
@@ -63,9 +64,13 @@ _NLAM = 600
 _C2_UM_K = 14387.7688
 
 
-def _law_model(law: str, rv: float):
+def _check_law(law: str) -> None:
     if law not in LAWS:
         raise ValueError(f"unknown extinction law {law!r}; valid laws: {', '.join(LAWS)}")
+
+
+def _law_model(law: str, rv: float):
+    _check_law(law)
     from dust_extinction import parameter_averages as pa
 
     cls = getattr(pa, law)
@@ -167,14 +172,33 @@ def _check_rv(rv) -> float:
 
 @functools.lru_cache(maxsize=256)
 def _ratio_grid(band_name: str, law: str, rv: float) -> _Uniform:
+    """The ratio on the Teff grid; also kept in the on-disk cache (:mod:`hbmodel._cache`), keyed by the
+    band's passband parameters, the law, R_V, this module's source and the dust_extinction version, so
+    a fresh process needs neither dust_extinction nor astropy (an invalid R_V is never stored)."""
+    from importlib.metadata import version
+
+    from ._cache import cached_array, source_digest
     band = get_band(band_name)
-    lam, resp = passband(band)
-    k = law_curve(law, rv, lam)
     lo, hi = np.log10(TEFF_RANGE_K[0]), np.log10(TEFF_RANGE_K[1])
-    teff = np.logspace(lo, hi, _NGRID)
-    # photon-counting weight F_lambda * lambda * S(lambda), blackbody F_lambda
-    w = resp * _planck_photons(lam[None, :], teff[:, None])
-    ratio = rv * (w * k).sum(axis=1) / w.sum(axis=1)
+
+    def compute():
+        lam, resp = passband(band)
+        k = law_curve(law, rv, lam)
+        teff = np.logspace(lo, hi, _NGRID)
+        # photon-counting weight F_lambda * lambda * S(lambda), blackbody F_lambda
+        w = resp * _planck_photons(lam[None, :], teff[:, None])
+        return rv * (w * k).sum(axis=1) / w.sum(axis=1)
+
+    try:
+        dust_version = version("dust_extinction")
+    except Exception:  # metadata missing: no disk cache for this entry
+        return _Uniform(lo, hi, _NGRID, {"r": compute()})
+    passband_key = (band.name, band.shape, band.lambda_lo_um, band.lambda_hi_um, band.lambda_eff_um)
+    key = (passband_key, law, float(rv), _NGRID, _NLAM, tuple(TEFF_RANGE_K), dust_version,
+           source_digest(sys.modules[__name__]))
+    ratio = cached_array("extinction-ratio", key, compute)
+    if ratio.shape != (_NGRID,) or not np.all(np.isfinite(ratio)):
+        ratio = compute()
     return _Uniform(lo, hi, _NGRID, {"r": ratio})
 
 
@@ -221,7 +245,8 @@ def extinction_ratio(band, teff_k, rv=3.1, law="F99", ebv=None) -> np.ndarray:
     b = get_band(band)
     name = b.name
     rv = _check_rv(rv)
-    _law_model(law, rv)
+    _check_law(law)
+    grid = _ratio_grid(name, law, rv)  # checks R_V against the law's range when the grid is computed
     teff = check_range(teff_k, "teff_k", *TEFF_RANGE_K, what="extinction calibration range (K)")
     if b.passband != "approx":
         av = np.zeros(()) if ebv is None else _check_ebv(ebv) * rv
@@ -231,7 +256,6 @@ def extinction_ratio(band, teff_k, rv=3.1, law="F99", ebv=None) -> np.ndarray:
         logt, avg, ratio = _curved_grid(name, law, rv)
         lt, a = np.broadcast_arrays(np.log10(teff), av)
         return _bilinear(logt, avg, ratio, lt, a)
-    grid = _ratio_grid(name, law, rv)
     flat = np.log10(np.ravel(teff))
     i, f = grid.locate(flat)
     return grid.get("r", i, f).reshape(teff.shape)

@@ -21,7 +21,7 @@ import numpy as np
 from .imf import imf_number_density
 from .population import Population
 
-__all__ = ["ObservationSpec", "make_mock", "star_sampler", "expected_hb_count", "imf_number_density",
+__all__ = ["ObservationSpec", "make_mock", "make_mock_arrays", "mock_table", "PHASE_NAMES", "star_sampler", "expected_hb_count", "imf_number_density",
            "stars_per_hb_star", "mock_estimate", "ChunkPlan", "plan_chunked_mock", "write_chunked_mock"]
 
 
@@ -107,6 +107,13 @@ def star_sampler(population: Population, bands, rv=3.1, law="F99"):
     return cache[key]
 
 
+#: Names of the phase codes of :func:`make_mock_arrays` (index = code): RGB, HB, early AGB, field star.
+PHASE_NAMES = ("rgb", "hb", "agb", "field")
+#: Columns of a mock kept in float32 (7 significant digits: 1e-6 mag, 0.001 K, 1e-7 Msun; far below
+#: any model or observational error); computed in float64 and rounded once, on storing.
+COMPACT_DTYPE = np.float32
+
+
 def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=None, total_mass_msun=None,
               obs: ObservationSpec = ObservationSpec()):
     """Generate a mock catalogue (astropy Table) of RGB, HB and early-AGB stars (and field stars).
@@ -114,13 +121,35 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     Stars come from the population's tabulated sampler (:mod:`hbmodel.sampler`).  Columns: ``phase``
     (rgb/hb/agb/field), ``mass`` [Msun], ``teff`` [K], ``logg`` [cgs], ``logl`` [Lsun], ``is_rr``,
     ``rr_mode`` (0 none, 1 RRab, 2 RRc), ``period_days``, ``ebv``, and per band ``<band>`` (observed
-    apparent magnitude), ``<band>_err``, ``<band>_true``.
+    apparent magnitude), ``<band>_err``, ``<band>_true``.  Real-valued columns are float32
+    (:data:`COMPACT_DTYPE`); the arrays themselves: :func:`make_mock_arrays`.
     """
+    data, meta = make_mock_arrays(population, bands=bands, rng=rng, n_hb=n_hb, total_mass_msun=total_mass_msun,
+                                  obs=obs)
+    return mock_table(data, meta)
+
+
+def mock_table(data: dict, meta: dict):
+    """The astropy Table of :func:`make_mock_arrays`' output (phase codes turned into names)."""
     from astropy.table import Table
+    data = dict(data)
+    width = "<U5" if np.any(data["phase"] == PHASE_NAMES.index("field")) or meta.get("n_field") else "<U3"
+    data["phase"] = np.array(PHASE_NAMES, dtype=width)[data["phase"]]
+    t = Table(data, copy=False)
+    t.meta["hbmodel_mock"] = {k: v for k, v in meta.items() if k != "n_field"}
+    return t
+
+
+def make_mock_arrays(population: Population, *, bands, rng: np.random.Generator, n_hb=None,
+                     total_mass_msun=None, obs: ObservationSpec = ObservationSpec()):
+    """The columns of :func:`make_mock` as numpy arrays, and its metadata: ``(data, meta)``.
+
+    ``data["phase"]`` holds int8 codes into :data:`PHASE_NAMES`; every other column is as in
+    :func:`make_mock`.  Writers that store categories (Parquet) take the codes as they are.
+    """
     from .observe import (CMDBox, Completeness, add_unresolved_binaries, default_error_law,
                           differential_reddening, observe_magnitudes, resample_field, uniform_contaminants)
     from .photometry import get_band
-    from .population import PHASES
     from .pulsation import MODE_NONE
 
     if not isinstance(rng, np.random.Generator):
@@ -142,8 +171,10 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     rgb_range = _rgb_logl_range(obs)
     sampler = star_sampler(population, bands, obs.rv, obs.law)
     per_star = obs.ebv_sd > 0 or obs.binary_fraction > 0
+    # companions are drawn from the primaries' masses: those stay float64 until then
     d = sampler.draw(int(n_hb), rng, rgb_logl_range=rgb_range, distance_modulus=obs.distance_modulus,
-                     ebv=None if per_star else obs.ebv)
+                     ebv=None if per_star else obs.ebv,
+                     star_dtype=np.float64 if obs.binary_fraction > 0 else COMPACT_DTYPE)
     n = len(d["phase"])
     if per_star:
         absmag = {b: d[f"M_{b}"] for b in bands}
@@ -151,14 +182,16 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
             feh = np.array([s.composition.feh for s in population.subpopulations])[d["sub"]]
             comp = _companions(d["mass"], feh, rng, bands)
             absmag = add_unresolved_binaries(absmag, comp, obs.binary_fraction, rng)
+            d = {k: (v.astype(COMPACT_DTYPE) if k in ("mass", "teff", "logg", "logl", "period_days") else v)
+                 for k, v in d.items()}
         ebv_star = differential_reddening(n, obs.ebv, rng, sd=obs.ebv_sd) if n else np.zeros(0)
         true = {b: absmag[b] + obs.distance_modulus + ebv_star * d[f"R_{b}"] for b in bands}
+        ebv_star = ebv_star.astype(COMPACT_DTYPE)
     else:
-        ebv_star = np.full(n, float(obs.ebv))
+        ebv_star = np.full(n, obs.ebv, COMPACT_DTYPE)
         true = {b: d[f"{b}_true"] for b in bands}
     mode = d["rr_mode"]
-    names = np.array(PHASES + ("field",), dtype="<U5" if obs.n_field > 0 else "<U3")
-    cols = {"phase": names[d["phase"]], "mass": d["mass"], "teff": d["teff"], "logg": d["logg"],
+    cols = {"phase": d["phase"], "mass": d["mass"], "teff": d["teff"], "logg": d["logg"],
             "logl": d["logl"], "is_rr": mode != MODE_NONE, "rr_mode": mode.astype(np.int16),
             "period_days": d["period_days"], "ebv": ebv_star}
     # field contamination
@@ -176,9 +209,8 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
             field = {b: field[b] if b in field else field[bands[0]] for b in bands}
         nf = obs.n_field
         true = {b: np.concatenate([true[b], np.asarray(field[b], float)]) for b in bands}
-        cols = {k: np.concatenate([v, np.full(nf, "field" if k == "phase" else
-                                              (False if k == "is_rr" else (0 if k == "rr_mode" else np.nan)),
-                                              dtype=v.dtype)]) for k, v in cols.items()}
+        fill = {"phase": PHASE_NAMES.index("field"), "is_rr": False, "rr_mode": 0}
+        cols = {k: np.concatenate([v, np.full(nf, fill.get(k, np.nan), dtype=v.dtype)]) for k, v in cols.items()}
     laws = {}
     for b in bands:
         if obs.depth and b in obs.depth:
@@ -191,7 +223,8 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     if obs.completeness_m50 is not None:
         completeness = Completeness(obs.completeness_m50, obs.completeness_width)
     observed, errors, detected = observe_magnitudes(true, rng, error_laws=laws, completeness=completeness,
-                                                    completeness_band=cband if completeness else None)
+                                                    completeness_band=cband if completeness else None,
+                                                    dtype=COMPACT_DTYPE)
     keep = np.asarray(detected, bool)
     if obs.window is not None:
         wband, bright, faint = obs.window
@@ -201,11 +234,10 @@ def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=N
     for b in bands:
         data[b] = sel(observed[b])
         data[f"{b}_err"] = sel(errors[b])
-        data[f"{b}_true"] = sel(true[b])
-    t = Table(data, copy=False)
-    t.meta["hbmodel_mock"] = {"n_hb_drawn": int(n_hb), "distance_modulus": obs.distance_modulus,
-                              "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands)}
-    return t
+        data[f"{b}_true"] = sel(true[b]).astype(COMPACT_DTYPE)
+    meta = {"n_hb_drawn": int(n_hb), "distance_modulus": obs.distance_modulus,
+            "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands), "n_field": int(obs.n_field)}
+    return data, meta
 
 
 def _rgb_logl_range(obs: ObservationSpec):
@@ -259,7 +291,7 @@ def mock_estimate(population: Population, *, bands, obs: ObservationSpec = Obser
         return Estimate("this mock", memory_bytes=table_memory_bytes(rows, cols) + plot_bytes,
                         detail=f"about {rows:.3g} stars")
     return Estimate("this mock", memory_bytes=table_memory_bytes(rows, cols, out) + plot_bytes,
-                    disk_bytes=table_disk_bytes(rows, cols, out), disk_path=Path(out).parent,
+                    disk_bytes=table_disk_bytes(rows, cols, out, float32=True), disk_path=Path(out).parent,
                     detail=f"about {rows:.3g} stars")
 
 
@@ -279,11 +311,12 @@ class _MockChunk:
 
     def __call__(self, index, n, seed_sequence):
         import pyarrow as pa
+
+        from .io import _arrow_column
         rng = np.random.default_rng(seed_sequence)
         obs = replace(self.obs, n_field=self.field_sizes[index])
-        t = make_mock(self.population, bands=self.bands, rng=rng, n_hb=int(n), obs=obs)
-        t.meta.clear()
-        return pa.table({c: np.asarray(t[c]) for c in t.colnames})
+        data, _meta = make_mock_arrays(self.population, bands=self.bands, rng=rng, n_hb=int(n), obs=obs)
+        return pa.table({c: _arrow_column(v, PHASE_NAMES if c == "phase" else None) for c, v in data.items()})
 
 
 @dataclass(frozen=True)
@@ -319,7 +352,7 @@ class ChunkPlan:
             workers = min(n_parts, (os.cpu_count() or 1) if n_jobs == -1 else max(int(n_jobs), 1))
         mem = workers * table_memory_bytes(rows_part, cols) + max(workers - 1, 0) * BASE_MEMORY_BYTES
         return Estimate("this chunked mock", memory_bytes=mem,
-                        disk_bytes=table_disk_bytes(self.n_rows, cols, "x.parquet"), disk_path=out_dir,
+                        disk_bytes=table_disk_bytes(self.n_rows, cols, "x.parquet", float32=True), disk_path=out_dir,
                         detail=f"{n_parts:,} partitions of about {rows_part:,.0f} stars, "
                                f"{self.n_rows:.3g} stars in all")
 

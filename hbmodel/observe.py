@@ -341,7 +341,8 @@ class Completeness:
 def observe_magnitudes(true_mag: Mapping[str, np.ndarray], rng, *,
                        error_laws: Mapping[str, ErrorLaw],
                        completeness: Completeness | None = None,
-                       completeness_band: str | None = None):
+                       completeness_band: str | None = None,
+                       dtype=np.float64):
     """Turn true magnitudes into observed ones.
 
     For each band, sigma = ``error_laws[band](true)`` and
@@ -352,7 +353,8 @@ def observe_magnitudes(true_mag: Mapping[str, np.ndarray], rng, *,
     completeness, as a function of input magnitude (common practice).
 
     Bands are processed in the order of ``true_mag``; the same generator state
-    gives the same output.
+    gives the same output.  ``dtype`` is the type of ``observed`` and ``errors``
+    (computed in float64 and rounded once, e.g. float32 for a compact catalogue).
 
     Returns
     -------
@@ -377,7 +379,8 @@ def observe_magnitudes(true_mag: Mapping[str, np.ndarray], rng, *,
     observed, errors = {}, {}
     for band, m in mags.items():
         flat = m.ravel()
-        sigma, obs = np.empty_like(flat), np.empty_like(flat)
+        sigma, obs = np.empty(flat.shape, dtype), np.empty(flat.shape, dtype)
+        buf = np.empty(min(flat.size, _CHUNK))
         # cache-sized chunks; the normal deviates come out in the same order as one big draw
         for c0 in range(0, max(flat.size, 1), _CHUNK):
             sl = slice(c0, c0 + _CHUNK)
@@ -385,10 +388,11 @@ def observe_magnitudes(true_mag: Mapping[str, np.ndarray], rng, *,
             if s.shape != flat[sl].shape or (s.size and not s.min() > 0):  # NaN fails the test too
                 raise ValueError(f"error law for band {band!r} gave non-positive or NaN sigma")
             sigma[sl] = s
-            o = obs[sl]
+            o = buf[:s.size]
             rng.standard_normal(out=o)
             o *= s
             o += flat[sl]
+            obs[sl] = o
         observed[band] = obs.reshape(m.shape)
         errors[band] = sigma.reshape(m.shape)
 

@@ -67,7 +67,6 @@ import re
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
 
 from ._tables import _text, read_table, table_cache
 from ._validate import as_float_array, check_range
@@ -467,6 +466,8 @@ def _engine():
     lo, hi = np.log10(TEFF_RANGE_K[0]), np.log10(TEFF_RANGE_K[1])
     logt = np.linspace(lo, hi, _NFINE)
     teff = 10.0 ** logt
+    from scipy.interpolate import PchipInterpolator  # lazy: scipy.interpolate costs ~0.5 s at start-up
+
     cols = {}
     bands = None
     for trk, name in enumerate(_TRACK_TABLES):

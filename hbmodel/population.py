@@ -106,7 +106,7 @@ class MassLoss:
         if np.all(sd == 0):
             cw = np.cumsum(w)
             return mu[np.minimum(np.searchsorted(cw, u, side="right"), len(mu) - 1)]
-        from scipy.stats import norm
+        from scipy.special import ndtr  # the normal CDF (what scipy.stats.norm.cdf calls), lighter import
         lo = max(0.0, float(np.min(mu - 7 * np.maximum(sd, 1e-6))))
         hi = float(np.max(mu + 7 * np.maximum(sd, 1e-6)))
         x = np.linspace(lo, hi, 4001)
@@ -115,8 +115,8 @@ class MassLoss:
             if si == 0:
                 cdf += wi * (x >= mi)
             else:  # truncated at zero
-                a = norm.cdf((0.0 - mi) / si)
-                cdf += wi * np.clip((norm.cdf((x - mi) / si) - a) / (1 - a), 0, 1)
+                a = ndtr((0.0 - mi) / si)
+                cdf += wi * np.clip((ndtr((x - mi) / si) - a) / (1 - a), 0, 1)
         cdf = np.maximum.accumulate(cdf)
         cdf = (cdf - cdf[0]) / (cdf[-1] - cdf[0])
         return np.interp(u, cdf, x)

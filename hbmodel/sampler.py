@@ -39,7 +39,17 @@ __all__ = ["StarSampler", "PHASE_CODES", "N_RGB_NODES", "N_MASS_NODES"]
 PHASE_CODES = {ph: k for k, ph in enumerate(PHASES)}
 N_RGB_NODES = 16385
 N_MASS_NODES = 4097
-_CHUNK = 1 << 13      # stars per chunk: 64 kB temporaries stay in cache and below malloc's mmap threshold
+_CHUNK = 1 << 13      # stars per chunk of random numbers (fixes the order the stream is read in)
+_WORK = 1 << 15       # stars per stretch of physics (measured fastest: per-call overheads vs cache)
+
+
+def _threads(n_threads, n_work) -> int:
+    """Worker threads of a draw: ``n_threads`` if given, else up to 2 when the machine has the cores
+    (more gain little: the look-ups are memory-bound); never more than the stretches of work."""
+    import os
+    if n_threads is None:
+        n_threads = min(2, os.cpu_count() or 1)
+    return max(1, min(int(n_threads), n_work))
 _N_U = 8192           # mass-loss quantile cells used to build the lifetime-weighted mass distribution
 
 
@@ -145,7 +155,8 @@ class StarSampler:
         return self.population.phase_counts(n_hb, rng, PHASES, rgb_logl_range, rates=self._rates)
 
     # ------------------------------------------------------------------ draws
-    def draw(self, n_hb, rng: np.random.Generator, *, rgb_logl_range=None, distance_modulus=0.0, ebv=None):
+    def draw(self, n_hb, rng: np.random.Generator, *, rgb_logl_range=None, distance_modulus=0.0, ebv=None,
+             star_dtype=np.float64, n_threads=None):
         """Random stars: ``n_hb`` HB stars (expected) plus their RGB and early-AGB stars.
 
         Returns a dict of equal-length arrays: ``phase`` (int codes, :data:`PHASE_CODES`), ``sub``
@@ -153,7 +164,11 @@ class StarSampler:
         ``teff``, ``logg``, ``logl``, ``rr_mode``, ``period_days``, and per band either the true
         apparent magnitude ``<band>_true`` = M + ``distance_modulus`` + ``ebv`` A/E(B-V) (scalar
         ``ebv``) or, with ``ebv=None``, ``M_<band>`` and ``R_<band>`` (absolute magnitude and
-        A_band/E(B-V)) for per-star reddening.
+        A_band/E(B-V)) for per-star reddening.  ``star_dtype`` is the type of ``mass``, ``teff``, ``logg``,
+        ``logl`` and ``period_days`` (computed in float64 and rounded once on storing, e.g. float32 for
+        a compact catalogue); magnitudes and ratios are float64.  ``n_threads`` (default: up to 2) share
+        the per-star physics; the random numbers are drawn first, in one thread, so the stars do not
+        depend on it.
         """
         if not isinstance(rng, np.random.Generator):
             raise ValueError("draw() needs a numpy.random.Generator")
@@ -163,35 +178,74 @@ class StarSampler:
         blocks = self.counts(n_hb, rng, rgb_logl_range)
         n = sum(b[2] for b in blocks)
         per_star = ebv is None
-        names = ["mass", "teff", "logg", "logl", "period_days"]
-        names += ([f"M_{b}" for b in self.bands] + [f"R_{b}" for b in self.bands] if per_star
-                  else [f"{b}_true" for b in self.bands])
-        out = {k: np.empty(n) for k in names}
+        out = {k: np.empty(n, star_dtype) for k in ("mass", "teff", "logg", "logl", "period_days")}
+        names = ([f"M_{b}" for b in self.bands] + [f"R_{b}" for b in self.bands] if per_star
+                 else [f"{b}_true" for b in self.bands])
+        out.update({k: np.empty(n) for k in names})
         sizes = [b[2] for b in blocks]
         out["phase"] = np.repeat(np.array([PHASE_CODES[b[1]] for b in blocks], np.int8), sizes)
         out["sub"] = np.repeat(np.array([b[0] for b in blocks], np.int16), sizes)
         out["rr_mode"] = np.zeros(n, np.int8)
+        if ebv is not None:  # the RGB tables of true apparent magnitudes, made before any worker runs
+            for i in {b[0] for b in blocks if b[1] == "rgb"}:
+                self._composed_rgb(i, distance_modulus, ebv)
+        work = []  # (method, arguments): the physics of each stretch of stars, once its random numbers are drawn
         a = 0
         for i, ph, k, win in blocks:
-            # cache-sized chunks: every temporary of the look-ups stays in cache
-            for c0 in range(a, a + k, _CHUNK):
-                c1 = min(c0 + _CHUNK, a + k)
-                view = {key: arr[c0:c1] for key, arr in out.items()}
+            # The random numbers come first, in the order the stream has always been read (chunks of _CHUNK
+            # stars: RGB one uniform a star; HB/AGB a chunk's mass quantiles, then its track phases), so a
+            # seed gives the same stars whatever the work size or the number of threads.
+            if ph == "rgb":
+                r = (rng.random(k),)
+            else:
+                u = rng.random(2 * k)
+                full = k // _CHUNK * _CHUNK
+                head = u[:2 * full].reshape(-1, 2, _CHUNK)
+                r = tuple(np.concatenate([head[:, j].ravel(), u[2 * full + j * (k - full):2 * full + (j + 1) * (k - full)]])
+                          for j in (0, 1))
+            for c0 in range(0, k, _WORK):
+                c1 = min(c0 + _WORK, k)
+                view = {key: arr[a + c0:a + c1] for key, arr in out.items()}
+                rand = tuple(x[c0:c1] for x in r)
                 if ph == "rgb":
-                    self._fill_rgb(i, c1 - c0, win, rng, view, distance_modulus, ebv)
+                    work.append((self._fill_rgb, (i, win, *rand, view, distance_modulus, ebv)))
                 else:
-                    self._fill_hb(i, ph, c1 - c0, rng, view, distance_modulus, ebv)
+                    work.append((self._fill_hb, (i, ph, *rand, view, distance_modulus, ebv)))
             a += k
+        threads = _threads(n_threads, len(work))
+        if threads > 1:  # numpy releases the GIL in the element-wise work; stretches are disjoint
+            from concurrent.futures import ThreadPoolExecutor
+            with ThreadPoolExecutor(threads) as pool:
+                for f in [pool.submit(fn, *args) for fn, args in work]:
+                    f.result()
+        else:
+            for fn, args in work:
+                fn(*args)
         return out
 
-    def _fill_rgb(self, i, k, win, rng, out, dm, ebv):
+    def _composed_rgb(self, i, dm, ebv):
+        """The RGB table of sub-population ``i`` in true apparent magnitudes (a function of the
+        fractional age alone: composed at the nodes, looked up once per star)."""
+        key = (i, float(dm), float(ebv))
+        comp = self._composed.get(key)
+        if comp is None:
+            if len(self._composed) > 64:
+                self._composed.clear()
+            tab = self._tables[i].rgb
+            comp = self._composed[key] = _Uniform(0.0, 1.0, tab.n, {
+                b: tab.val[f"M_{b}"] + dm + ebv * tab.val[f"R_{b}"] for b in self.bands})
+        return comp
+
+    def _fill_rgb(self, i, win, v, out, dm, ebv):
         tab = self._tables[i].rgb
-        v = rng.random(k)
-        v *= win[1] - win[0]
+        v = v * (win[1] - win[0])
         v += win[0]
         loc = tab.locate(v)
         for key in ("mass", "teff", "logg", "logl"):
-            tab.get(key, *loc, out=out[key])
+            if out[key].dtype == np.float64:
+                tab.get(key, *loc, out=out[key])
+            else:  # interpolated in float64, rounded once
+                out[key][...] = tab.get(key, *loc)
         out["period_days"][...] = np.nan
         if ebv is None:
             for b in self.bands:
@@ -199,21 +253,14 @@ class StarSampler:
                 tab.get(f"R_{b}", *loc, out=out[f"R_{b}"])
         else:
             # the true apparent magnitude is itself a function of v: compose at the nodes, look up once
-            key = (i, float(dm), float(ebv))
-            comp = self._composed.get(key)
-            if comp is None:
-                if len(self._composed) > 64:
-                    self._composed.clear()
-                comp = self._composed[key] = _Uniform(0.0, 1.0, tab.n, {
-                    b: tab.val[f"M_{b}"] + dm + ebv * tab.val[f"R_{b}"] for b in self.bands})
+            comp = self._composed_rgb(i, dm, ebv)
             for b in self.bands:
                 comp.get(b, *loc, out=out[f"{b}_true"])
 
-    def _fill_hb(self, i, ph, k, rng, out, dm, ebv):
+    def _fill_hb(self, i, ph, p, s, out, dm, ebv):
         sub = self.population.subpopulations[i]
         tabs = self._tables[i]
         kind, *mt = tabs.mass[ph]
-        p = rng.random(k)
         if kind == "discrete":
             cum, m, l0, t0 = mt
             j = np.minimum(np.searchsorted(cum, p, side="right"), len(cum) - 1)
@@ -222,7 +269,6 @@ class StarSampler:
             tab = mt[0]
             loc = tab.locate(p)
             mass, log_mass, l0, t0 = (tab.get(c, *loc) for c in ("mass", "log_mass", "l0", "t0"))
-        s = rng.random(k)
         if ph == "hb":
             logl, logt = hbe.hb_track(l0, t0, s)
             # the redward end of the HB never crosses the RGB (it joins the AGB, bluer than the RGB)
@@ -233,7 +279,8 @@ class StarSampler:
         out["mass"][...] = mass
         out["logl"][...] = logl
         np.power(10.0, logt, out=out["teff"])
-        logg = log_g_from_logs(log_mass, logl, logt, out=out["logg"])
+        logg = log_g_from_logs(log_mass, logl, logt)
+        out["logg"][...] = logg
         if ph == "hb":
             mode = pulsation_mode(logt, logl, mass, (l0, t0, s))
             out["rr_mode"][...] = mode

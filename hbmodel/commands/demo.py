@@ -58,7 +58,7 @@ def _fit_cluster(key, s, out, quick, force, lines):
     truth = _population(s).predict(bands=("V",))
     pop = Population(s["feh"], s["age"], alpha_fe=s["alpha_fe"])
     pri = Priors(distance_modulus=(s["distance_modulus"], 0.05), ebv=(s["ebv"], 0.02))
-    kw = dict(max_steps=1500, chunk=500, compare_models=False) if quick else {}
+    kw = dict(max_steps=1500, compare_models=False) if quick else {}
     est = MassLossFit(population=pop, priors=pri, model="spread", bands=tuple(s["bands"]), seed=1, **kw)
     if "masses" in s:  # a red clump barely constrains the loss photometrically: use the seismic masses
         est.fit(masses=_catalog(s["masses"]))

@@ -70,8 +70,7 @@ def add_arguments(p):
 
 def run(args):
     from ..io import read_catalog, write_table
-    from ..plot_style import save_figure
-    from ..mock import ObservationSpec, make_mock
+    from ..mock import PHASE_NAMES, ObservationSpec, make_mock_arrays, mock_table
 
     from ..photometry import parse_bands, resolve_band
     bands = list(parse_bands(args.bands, "--bands"))
@@ -136,12 +135,22 @@ def run(args):
     if args.plot:                                   # is left behind by a refused plot
         check_output_file(args.plot, force=args.force)
     rng = np.random.default_rng(args.seed)
-    table = make_mock(pop, bands=bands, rng=rng, n_hb=args.n_hb, total_mass_msun=args.total_mass, obs=obs)
-    if len(table) == 0:
+    data, meta = make_mock_arrays(pop, bands=bands, rng=rng, n_hb=args.n_hb, total_mass_msun=args.total_mass,
+                                  obs=obs)
+    if len(data["phase"]) == 0:
         what = f"--window {window[0]}:{window[1]:g}:{window[2]:g}" if window else "the completeness limit"
         raise ValueError(f"no star survives {what}: the mock would be empty (nothing written)")
-    write_table(table, args.out, force=args.force)
+    table = None
+    if str(args.out).lower().endswith(".parquet"):  # straight from the arrays (phase as categories)
+        from ..io import write_parquet_columns
+        write_parquet_columns(data, args.out, force=args.force, categories={"phase": PHASE_NAMES if meta["n_field"] else PHASE_NAMES[:3]},
+                              meta={"hbmodel_mock": {k: v for k, v in meta.items() if k != "n_field"}})
+    else:
+        table = mock_table(data, meta)
+        write_table(table, args.out, force=args.force)
     if args.plot:
+        table = mock_table(data, meta) if table is None else table
+        from ..plot_style import save_figure
         from ..plots import plot_cmd, plot_luminosity_function
         title = f"mock: [Fe/H] = {args.feh:+.2f}, {args.age:g} Gyr"
         if len(bands) > 1:  # a CMD; one band has no colour: its luminosity function instead
@@ -149,7 +158,7 @@ def run(args):
         else:
             fig, _ = plot_luminosity_function(table, bands[0], title=title)
         save_figure(fig, args.plot, force=args.force, pdf=False)
-    counts = {ph: int(np.sum(table["phase"] == ph)) for ph in ("rgb", "hb", "agb", "field")}
-    print(f"wrote {len(table)} stars to {args.out} "
+    counts = dict(zip(PHASE_NAMES, np.bincount(data["phase"], minlength=len(PHASE_NAMES)).tolist()))
+    print(f"wrote {len(data['phase'])} stars to {args.out} "
           + ", ".join(f"{k}={v}" for k, v in counts.items() if v))
     return 0
