@@ -246,7 +246,8 @@ def extinction_ratio(band, teff_k, rv=3.1, law="F99", ebv=None) -> np.ndarray:
     name = b.name
     rv = _check_rv(rv)
     _check_law(law)
-    grid = _ratio_grid(name, law, rv)  # checks R_V against the law's range when the grid is computed
+    if b.passband == "approx":
+        grid = _ratio_grid(name, law, rv)  # checks R_V against the law's range when the grid is computed
     teff = check_range(teff_k, "teff_k", *TEFF_RANGE_K, what="extinction calibration range (K)")
     if b.passband != "approx":
         av = np.zeros(()) if ebv is None else _check_ebv(ebv) * rv
