@@ -217,6 +217,8 @@ def _curved_grid(band_name: str, law: str, rv: float):
     try:
         k = law_curve(law, rv, lam)
     except ValueError as exc:
+        if "wavelength" not in str(exc):  # e.g. R_V outside the law's range: no passband hint applies
+            raise
         raise ValueError(f"band {band_name} ({lam[0]:.2f}-{lam[-1]:.2f} micron): {exc}; use the G23 law "
                          f"(--extinction-law G23), which reaches 32 micron") from None
     logt = np.linspace(np.log10(TEFF_RANGE_K[0]), np.log10(TEFF_RANGE_K[1]), _NGRID_AV)

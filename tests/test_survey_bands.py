@@ -77,6 +77,14 @@ def test_wise_bands_need_a_law_that_reaches_their_wavelengths():
     assert 0.02 < float(extinction_ratio("WISE_W1", 4500.0, law="G23")) / 3.1 < 0.09
 
 
+def test_rv_outside_the_law_range_is_named_not_blamed_on_the_passband():
+    # F99 is defined for R_V 2-6 (Fitzpatrick 1999, PASP 111, 63; the dust_extinction range): an optical
+    # survey band with R_V = 10 is refused for its R_V, without the "use G23" passband hint
+    with pytest.raises(ValueError, match="rv = 10") as err:
+        extinction_ratio("SDSS_g", 5000.0, rv=10.0)
+    assert "G23" not in str(err.value)
+
+
 # --------------------------------------------------------------------------- colour relations
 def test_sdss_magnitudes_follow_jester_2005_table_1():
     # Jester et al. 2005, AJ 130, 873, Table 1 (all stars with Rc-Ic < 1.15):
