@@ -1,26 +1,33 @@
 """hbmodel: a fast semi-analytic surrogate of core-helium-burning evolution.
 
-Stages (one module each, data flowing one way): composition -> giant_branch -> ignition ->
-mass_loss -> zahb -> hb_evolution -> pulsation -> photometry/extinction -> population ->
-morphology / mock -> likelihood / fit -> clump_distance / classify -> reports / batch.
-"""
-__version__ = "0.1.0"
+Rooms by domain; the folder tree is the data flow, and a room imports only rooms below it
+(``tests/test_layers.py`` walks every import, function-level ones included):
 
-from .composition import Composition  # noqa: F401
-from .population import Component, MassLoss, Population, StarSet  # noqa: F401
+    core -> physics -> photometry -> io -> populations -> calibration -> observation -> inference
+         -> outputs -> batch -> cli
+
+``physics``: composition -> giant_branch -> mass_loss -> ignition -> zahb -> hb_evolution -> pulsation
+(+ imf); ``photometry``: magnitudes, extinction; ``populations``: population, sampler, morphology, grids;
+``observation``: effects, mock; ``inference``: likelihood, mass_loss_fit, clump_lf, clump_distance,
+classify, counts_fit; ``outputs``: plots, reports.
+"""
+from hbmodel.core.version import __version__  # noqa: F401
+
+from hbmodel.physics.composition import Composition  # noqa: F401
+from hbmodel.populations.population import Component, MassLoss, Population, StarSet  # noqa: F401
 
 
 def __getattr__(name):
     # heavier parts are imported on first use
     lazy = {
-        "make_mock": ("mock", "make_mock"), "ObservationSpec": ("mock", "ObservationSpec"),
-        "MassLossFit": ("fit", "MassLossFit"), "Priors": ("fit", "Priors"),
-        "measure_distance": ("clump_distance", "measure_distance"), "clump_model": ("clump_distance", "clump_model"),
-        "fit_clump_lf": ("clump_lf", "fit_clump_lf"), "CHeBClassifier": ("classify", "CHeBClassifier"),
-        "read_jobs": ("batch", "read_jobs"), "run_batch": ("batch", "run_batch"),
-        "run_chunked": ("batch", "run_chunked"), "read_catalog": ("io", "read_catalog"),
-        "write_table": ("io", "write_table"), "absolute_magnitudes": ("photometry", "absolute_magnitudes"),
-        "resolve_band": ("photometry", "resolve_band"),
+        "make_mock": ("observation.mock", "make_mock"), "ObservationSpec": ("observation.mock", "ObservationSpec"),
+        "MassLossFit": ("inference.mass_loss_fit", "MassLossFit"), "Priors": ("inference.mass_loss_fit", "Priors"),
+        "measure_distance": ("inference.clump_distance", "measure_distance"), "clump_model": ("inference.clump_distance", "clump_model"),
+        "fit_clump_lf": ("inference.clump_lf", "fit_clump_lf"), "CHeBClassifier": ("inference.classify", "CHeBClassifier"),
+        "read_jobs": ("io.jobs", "read_jobs"), "run_batch": ("io.jobs", "run_batch"),
+        "run_chunked": ("io.jobs", "run_chunked"), "read_catalog": ("io.catalogues", "read_catalog"),
+        "write_table": ("io.catalogues", "write_table"), "absolute_magnitudes": ("photometry.magnitudes", "absolute_magnitudes"),
+        "resolve_band": ("photometry.magnitudes", "resolve_band"),
     }
     if name in lazy:
         import importlib

@@ -1,4 +1,4 @@
-"""Benchmark of hbmodel.batch: parallel speed-up and memory of chunked generation.
+"""Benchmark of hbmodel.io.jobs: parallel speed-up and memory of chunked generation.
 
 1. Speed-up of ``run_batch`` from 1 to 2 local workers on 8 CPU-bound jobs
    (a maximum-likelihood fit of a Gaussian peak on a linear background to a
@@ -21,7 +21,7 @@ import time
 
 import numpy as np
 
-from hbmodel.batch import run_batch
+from hbmodel.io.jobs import run_batch
 
 
 def peak_fit_task(job: dict, job_dir: pathlib.Path) -> dict:
@@ -100,7 +100,7 @@ def bench_speedup(tmp: pathlib.Path, n_jobs_list=(1, 2), n_fields=8, n_stars=200
 _MEM_CHILD = r"""
 import json, resource, sys, tempfile, tracemalloc
 import numpy as np, pyarrow as pa
-from hbmodel.batch import run_chunked
+from hbmodel.io.jobs import run_chunked
 
 def make_chunk(index, n, child):
     rng = np.random.default_rng(child)

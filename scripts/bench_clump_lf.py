@@ -1,4 +1,4 @@
-"""Benchmark and calibration study of hbmodel.clump_lf.fit_clump_lf (prints figures, asserts nothing).
+"""Benchmark and calibration study of hbmodel.inference.clump_lf.fit_clump_lf (prints figures, asserts nothing).
 
 Synthetic clump-region luminosity functions (Gaussian clump on an exponential RGB background of slope
 B = 0.65/mag, RGB bump 0.7 mag fainter with 15% of the clump's count; values from memory of
@@ -15,7 +15,7 @@ import time
 
 import numpy as np
 
-from hbmodel.clump_lf import fit_clump_lf
+from hbmodel.inference.clump_lf import fit_clump_lf
 
 
 def draw_lf(rng, n, *, mc=15.5, sigma=0.15, slope=0.65, lo=14.0, hi=17.0, f_clump=0.35,

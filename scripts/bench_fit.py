@@ -1,4 +1,4 @@
-"""Benchmark of hbmodel.fit: one likelihood evaluation (2,000 stars) and a whole fit (optimise + emcee).
+"""Benchmark of hbmodel.inference.mass_loss_fit: one likelihood evaluation (2,000 stars) and a whole fit (optimise + emcee).
 
 Prints the time per evaluation (single and batched over walkers), the speed-up over the naive approach of
 resampling a synthetic HB (Population.sample + photometry + a Hess-diagram density) per call, and the
@@ -9,9 +9,9 @@ import time
 import numpy as np
 from threadpoolctl import threadpool_limits
 
-from hbmodel.fit import MassLossFit, Priors
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.inference.mass_loss_fit import MassLossFit, Priors
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 
 def main():

@@ -10,8 +10,8 @@ import time
 
 import numpy as np
 
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 
 def best_of(fn, repeat):

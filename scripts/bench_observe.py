@@ -7,10 +7,8 @@ from pathlib import Path
 
 import numpy as np
 
-from hbmodel import io as hio
-from hbmodel import observe as ob
-
-
+from hbmodel.io import catalogues as hio
+from hbmodel.observation import effects as ob
 def _t(label, fn, n):
     t0 = time.perf_counter()
     out = fn()

@@ -10,8 +10,8 @@ import time
 
 import numpy as np
 
-from hbmodel.extinction import apparent_magnitudes
-from hbmodel.photometry import BAND_NAMES, absolute_magnitudes
+from hbmodel.photometry.extinction import apparent_magnitudes
+from hbmodel.photometry.magnitudes import BAND_NAMES, absolute_magnitudes
 
 
 def main(n: int = 1_000_000, seed: int = 12345) -> None:

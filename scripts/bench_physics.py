@@ -7,9 +7,9 @@ os.environ.setdefault("OMP_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
 
-from hbmodel import hb_evolution as hbe  # noqa: E402
-from hbmodel.pulsation import period_days, pulsation_mode  # noqa: E402
-from hbmodel.zahb import zahb_state  # noqa: E402
+from hbmodel.physics import hb_evolution as hbe  # noqa: E402
+from hbmodel.physics.pulsation import period_days, pulsation_mode  # noqa: E402
+from hbmodel.physics.zahb import zahb_state  # noqa: E402
 
 
 def main(n=1_000_000, repeat=3):

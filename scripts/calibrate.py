@@ -17,10 +17,10 @@ from pathlib import Path
 
 import numpy as np
 
-from hbmodel._tables import _shipped_text
+from hbmodel.core.tables import _shipped_text
 from hbmodel.calibration.coefficients import MARK
 from hbmodel.calibration.stages import STAGES, run_all
-from hbmodel.io import atomic_write_text
+from hbmodel.io.catalogues import atomic_write_text
 
 CHECK_FRACTION = 0.1   # a shipped value may differ from the refit by this fraction of its uncertainty
 

@@ -30,10 +30,10 @@ def main(argv=None):
     ap.add_argument("--max-steps", type=int, default=6000)
     a = ap.parse_args(argv)
     from hbmodel.calibration.evaluators import ETA_SPREAD_OLD
-    from hbmodel.counts_fit import COUNT_COLUMNS, benchmark_counts, run_counts_table
+    from hbmodel.inference.counts_fit import COUNT_COLUMNS, benchmark_counts, run_counts_table
     clusters = benchmark_counts()
     if a.write_table:
-        from hbmodel.io import write_table
+        from hbmodel.io.catalogues import write_table
         cols = {k: [] for k in COUNT_COLUMNS if k != "seed"}
         for c in clusters:
             for k in cols:

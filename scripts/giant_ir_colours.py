@@ -41,8 +41,8 @@ GHB09_VALID = {"J": (1.0, 2.4), "H": (0.8, 3.1), "Ks": (1.1, 3.4)}
 
 def v_minus(band: str, teff_k: float, feh: float = 0.0) -> float:
     """V - band of a giant at ``teff_k`` from the relation (the increasing-branch root used by
-    :mod:`hbmodel.photometry`); ValueError outside the relation's published colour range."""
-    from hbmodel.photometry import _theta_root
+    :mod:`hbmodel.photometry.magnitudes`); ValueError outside the relation's published colour range."""
+    from hbmodel.photometry.magnitudes import _theta_root
     x = float(_theta_root(GHB09_GIANTS[band], np.array([5040.0 / teff_k]), np.array([float(feh)]))[0])
     lo, hi = GHB09_VALID[band]
     if not lo <= x <= hi:

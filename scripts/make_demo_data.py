@@ -8,10 +8,10 @@ from pathlib import Path
 
 import numpy as np
 
-from hbmodel.commands._common import toml_parser
-from hbmodel.io import write_table
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.cli.common import toml_parser
+from hbmodel.io.catalogues import write_table
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 HERE = Path(__file__).resolve().parent.parent / "hbmodel" / "demo_data"
 

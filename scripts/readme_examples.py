@@ -241,7 +241,7 @@ def _n_unclassified(workdir):
 def _plover3_mass_loss(workdir):
     import json
     sys.path.insert(0, str(ROOT))
-    from hbmodel.reports import format_interval
+    from hbmodel.outputs.reports import format_interval
     return format_interval(json.loads((workdir / "plover3_fit.json").read_text())["mass_loss"])
 
 
@@ -254,7 +254,7 @@ FIGURES = {"hbtype/hb_type_grid.png": "predict_hb_type.png", "clumpgrid/clump_gr
 
 def _plover3_truth(_workdir):
     sys.path.insert(0, str(ROOT))
-    from hbmodel.population import MassLoss, Population
+    from hbmodel.populations.population import MassLoss, Population
     return f"{Population(0.1, 3.0, mass_loss=MassLoss.from_eta(0.3, 0.03)).predict()['mass_loss']:.3f}"
 
 

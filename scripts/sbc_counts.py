@@ -23,7 +23,7 @@ def main(argv=None):
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--seed", type=int, default=0)
     a = ap.parse_args(argv)
-    from hbmodel.counts_fit import sbc_counts
+    from hbmodel.inference.counts_fit import sbc_counts
     t0 = time.perf_counter()
     res = sbc_counts(a.draws, seed=a.seed, n_hb=a.n_hb, n_jobs=a.jobs)
     dt = time.perf_counter() - t0

@@ -3,7 +3,7 @@
 For each regime, ``--n-draws`` truths are drawn from the fit's own priors (mean mass loss and its spread
 uniform, distance modulus and E(B-V) Gaussian, colour / magnitude zero points Gaussian and, with
 ``--ebv-spread``, a half-normal star-to-star E(B-V) spread), a mock catalogue is made from each truth
-(``hbmodel.mock.make_mock``: Monte-Carlo stars, a different code path from the fit's surrogate), and the
+(``hbmodel.observation.mock.make_mock``: Monte-Carlo stars, a different code path from the fit's surrogate), and the
 mock is fitted with the same priors.  Printed: the fraction of 68 % (16-84th percentile) and 95 %
 (2.5-97.5th) intervals of the mean mass loss that hold the truth, with its binomial 1-sigma error, and the
 mean and sd of the pulls (median - truth) / (half the 68 % interval).  A calibrated fit holds the truth in
@@ -26,10 +26,10 @@ import time
 import numpy as np
 from threadpoolctl import threadpool_limits
 
-from hbmodel.fit import MassLossFit, Priors
-from hbmodel.likelihood import ErrorModel, fit_constants
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.inference.mass_loss_fit import MassLossFit, Priors
+from hbmodel.inference.likelihood import ErrorModel, fit_constants
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 
 @dataclasses.dataclass(frozen=True)

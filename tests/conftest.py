@@ -1,4 +1,4 @@
-"""Test-session settings: the on-disk cache of derived tables (hbmodel._cache) goes to a temporary
+"""Test-session settings: the on-disk cache of derived tables (hbmodel.core.cache) goes to a temporary
 directory, so tests never read or fill the user's cache (subprocesses inherit the setting)."""
 import os
 

@@ -1,4 +1,4 @@
-"""Tests of the generic batch engine (hbmodel.batch).
+"""Tests of the generic batch engine (hbmodel.io.jobs).
 
 The engine is exercised with a small real computation of our own: a maximum-
 likelihood fit of a Gaussian to a catalogue's magnitude column, checked against
@@ -25,7 +25,7 @@ import pytest
 from astropy.table import Table
 from scipy import optimize
 
-from hbmodel.batch import flatten_result, job_seed, read_jobs, run_batch, run_chunked
+from hbmodel.io.jobs import flatten_result, job_seed, read_jobs, run_batch, run_chunked
 
 
 # --------------------------------------------------------------------------- test task
@@ -255,7 +255,7 @@ def test_replaced_catalogue_reruns_the_job(jobs_file, tmp_path):
 
 
 def test_jobs_schema_checks_columns_rows_and_types(tmp_path):
-    from hbmodel.batch import JobColumn, JobSchema, as_float, as_int, as_text
+    from hbmodel.io.jobs import JobColumn, JobSchema, as_float, as_int, as_text
     schema = JobSchema({"catalog": JobColumn(as_text, True), "feh": JobColumn(as_float, True),
                         "n": JobColumn(as_int), "age": JobColumn(as_float), "age_lo": JobColumn(as_float),
                         "age_hi": JobColumn(as_float)}, alternatives=((("age",), ("age_lo", "age_hi")),))
@@ -294,7 +294,7 @@ def test_kill_and_resume(jobs_file, tmp_path):
         import os, sys
         sys.path.insert(0, {str(pathlib.Path(__file__).parent)!r})
         from test_batch import counting_task
-        from hbmodel.batch import read_jobs, run_batch
+        from hbmodel.io.jobs import read_jobs, run_batch
         def dying_task(job, job_dir):
             if job["name"] == "Vela-3":
                 os._exit(17)
@@ -337,7 +337,7 @@ def test_sigkill_parallel_run_and_resume(jobs_file, tmp_path):
         import sys
         sys.path.insert(0, {str(pathlib.Path(__file__).parent)!r})
         from test_batch import slow_counting_task
-        from hbmodel.batch import read_jobs, run_batch
+        from hbmodel.io.jobs import read_jobs, run_batch
         t = read_jobs({str(jobs_file)!r})
         t["calls_log"] = {str(log)!r}
         run_batch(t, slow_counting_task, {str(out)!r}, n_jobs=2)

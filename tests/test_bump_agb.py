@@ -17,8 +17,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from hbmodel import giant_branch as gb
-from hbmodel.population import Population
+from hbmodel.physics import giant_branch as gb
+from hbmodel.populations.population import Population
 
 POPS = {  # (feh, age, alpha)
     "metal-poor": (-1.5, 12.0, 0.3),
@@ -65,7 +65,7 @@ def test_luminosity_function_fit_measures_the_predicted_bump_excess():
     in I (Nataf et al. 2011, ApJ 730, 118, abstract: 0.71 +- 0.02), for a single-age, single-[Fe/H]
     bulge-like population ([Fe/H] 0, 10 Gyr).  Tolerances: ~2 sigma of a 30,000-HB-star mock for the
     ratio; 0.08 mag for the offset (a single population against the bulge's metallicity spread)."""
-    from hbmodel.clump_lf import fit_clump_lf
+    from hbmodel.inference.clump_lf import fit_clump_lf
     pop = Population(0.0, 10.0)
     pred = pop.predict(bands=("I",))
     rng = np.random.default_rng(7)

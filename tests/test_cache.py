@@ -1,4 +1,4 @@
-"""The on-disk cache of derived tables (hbmodel._cache): what it returns is what the reference library
+"""The on-disk cache of derived tables (hbmodel.core.cache): what it returns is what the reference library
 gives (dust_extinction, through the uncached computation), a fresh process skips that library, and
 the cache stays correct when disabled, damaged, bounded or written by several processes."""
 import os
@@ -8,8 +8,8 @@ import sys
 import numpy as np
 import pytest
 
-from hbmodel import _cache
-from hbmodel.extinction import _ratio_grid, extinction_ratio
+from hbmodel.core import cache as _cache
+from hbmodel.photometry.extinction import _ratio_grid, extinction_ratio
 
 TEFF = np.array([3500.0, 4800.0, 6500.0, 12000.0])
 
@@ -51,7 +51,7 @@ def test_cached_ratio_is_the_reference_computation(monkeypatch, tmp_path):
 def test_fresh_process_with_a_warm_cache_skips_dust_extinction(monkeypatch, tmp_path):
     _fresh(monkeypatch, tmp_path)
     extinction_ratio("V", TEFF, rv=3.1, law="F99")
-    code = ("import sys; from hbmodel.extinction import extinction_ratio; "
+    code = ("import sys; from hbmodel.photometry.extinction import extinction_ratio; "
             "extinction_ratio('V', 5000.0, 3.1, 'F99'); print('dust_extinction' in sys.modules)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120,
                          env=dict(os.environ))
@@ -101,7 +101,7 @@ def test_cache_size_is_bounded(monkeypatch, tmp_path):
 
 def test_concurrent_writers_leave_one_valid_entry(tmp_path):
     # several processes computing the same entry at once: atomic renames, one readable file
-    code = ("import numpy as np; from hbmodel._cache import cached_array; "
+    code = ("import numpy as np; from hbmodel.core.cache import cached_array; "
             "a = cached_array('race', ('same',), lambda: np.arange(200000.0)); print(float(a.sum()))")
     env = dict(os.environ, HBMODEL_CACHE_DIR=str(tmp_path / "cache"))
     env.pop("HBMODEL_NO_CACHE", None)

@@ -6,7 +6,7 @@ Sources of the thresholds: the issue "Calibration you can defend" (>= 60 rows, >
 import numpy as np
 import pytest
 
-from hbmodel._tables import _shipped_text, read_table, trial_tables
+from hbmodel.core.tables import _shipped_text, read_table, trial_tables
 from hbmodel.calibration import EVALUATORS, read_clusters, read_targets, score_rows
 from hbmodel.calibration.coefficients import CoefficientTable
 from hbmodel.calibration.stages import STAGES, Stage, Free, fit_stage
@@ -55,7 +55,7 @@ def test_cluster_benchmark_size():
 
 
 def test_trial_tables_are_scoped_and_never_leak():
-    from hbmodel.hb_evolution import agb_lifetime_myr
+    from hbmodel.physics.hb_evolution import agb_lifetime_myr
     base = float(agb_lifetime_myr(0.49, 3.8, 0.0))
     tab = CoefficientTable.from_text(_shipped_text("hb_evolution.csv"))
     f0 = tab.value("f_agb", 0)

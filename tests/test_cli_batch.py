@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 from astropy.table import Table
 
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 
 def test_batch_distance_jobs(tmp_path):
@@ -46,7 +46,7 @@ def test_batch_bad_jobs_table(tmp_path):
 
 
 def _batch(tmp_path, text, task="distance"):
-    from hbmodel.cli import main
+    from hbmodel.cli.main import main
     (tmp_path / "j.csv").write_text(text)
     return main(["batch", str(tmp_path / "j.csv"), "--task", task, "--out", str(tmp_path / "o")])
 
@@ -78,8 +78,8 @@ def test_batch_jobs_table_is_validated_like_a_config_file(tmp_path, capsys, text
 
 
 def test_batch_band_alias_is_stored_canonical(tmp_path):
-    from hbmodel.batch import read_jobs
-    from hbmodel.tasks import JOB_SCHEMAS
+    from hbmodel.io.jobs import read_jobs
+    from hbmodel.batch.tasks import JOB_SCHEMAS
     (tmp_path / "j.csv").write_text("name,catalog,band,feh,age_min,age_max,ebv\nF,f.ecsv,k,0,1,10,0.1\n")
     t = read_jobs(tmp_path / "j.csv", schema=JOB_SCHEMAS["distance"])
     assert list(t["band"]) == ["Ks"] and float(t["age_max"][0]) == 10.0
@@ -88,7 +88,7 @@ def test_batch_band_alias_is_stored_canonical(tmp_path):
 def test_batch_output_problems_are_refused_before_any_job_runs(tmp_path, capsys):
     # Every output path is checked before any work (behaviour): a job directory taken by a file, a summary
     # name taken by a directory, an unwritable directory -- one-line error, exit 2, no job run.
-    from hbmodel.cli import main
+    from hbmodel.cli.main import main
     (tmp_path / "j.csv").write_text("name,catalog,band,feh,age,ebv\nF1,nothere.ecsv,I,0,4,0.1\n")
     out = tmp_path / "o"
     out.mkdir()
@@ -117,7 +117,7 @@ def test_batch_output_problems_are_refused_before_any_job_runs(tmp_path, capsys)
 
 def test_batch_summary_files_are_written_together(tmp_path, monkeypatch):
     # all-or-nothing: a failure while making the summary figure leaves no summary file at all
-    import hbmodel.batch as hb
+    import hbmodel.io.jobs as hb
     from astropy.table import Table as T
 
     def task(job, job_dir):

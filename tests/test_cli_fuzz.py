@@ -5,7 +5,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from hbmodel.cli import main
+from hbmodel.cli.main import main
 
 FLAGS = ["--feh", "--age", "--eta", "--eta-sd", "--mass-loss", "--helium", "--alpha-fe", "--bands", "--n-hb",
          "--out", "--band", "--ebv", "--json", "--config", "--grid", "--law", "--seed", "--window", "--force",

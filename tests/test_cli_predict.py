@@ -5,7 +5,7 @@ import sys
 
 import pytest
 
-from hbmodel.cli import main
+from hbmodel.cli.main import main
 
 BASE = ["predict", "--feh", "-1.5", "--alpha-fe", "0.3", "--age", "12.5", "--eta", "0.45", "--eta-sd", "0.03"]
 

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from astropy.table import Table
 
-from hbmodel.cli import main
-from hbmodel.photometry import parse_bands, parse_colour, resolve_band
+from hbmodel.cli.main import main
+from hbmodel.photometry.magnitudes import parse_bands, parse_colour, resolve_band
 
 POP = ["--feh", "-1.5", "--alpha-fe", "0.3", "--age", "12.5"]
 
@@ -71,7 +71,7 @@ def test_mock_columns_use_canonical_band_names(tmp_path, capsys):
 
 
 def test_catalogue_band_columns_are_found_under_an_alias(tmp_path):
-    from hbmodel.io import read_catalog
+    from hbmodel.io.catalogues import read_catalog
     Table({"K": [12.0, 12.5], "k_err": [0.02, 0.03], "J": [13.0, 13.6]}).write(tmp_path / "c.ecsv")
     t = read_catalog(tmp_path / "c.ecsv", required=("Ks", "Ks_err", "J"))
     assert list(t["Ks"]) == [12.0, 12.5] and list(t["Ks_err"]) == [0.02, 0.03]
@@ -106,9 +106,9 @@ def test_color_must_use_the_given_bands(tmp_path, capsys):
 def test_fit_colour_option_is_a_reflection_of_the_colour_axis():
     # fitting V vs I-V must give the same mass loss as V vs V-I (the likelihood is invariant under a
     # reflection of the colour axis); the region and the colour zero point are reported in the user's colour
-    from hbmodel.fit import MassLossFit, Priors
-    from hbmodel.mock import ObservationSpec, make_mock
-    from hbmodel.population import MassLoss, Population
+    from hbmodel.inference.mass_loss_fit import MassLossFit, Priors
+    from hbmodel.observation.mock import ObservationSpec, make_mock
+    from hbmodel.populations.population import MassLoss, Population
     truth = Population(0.0, 8.0, mass_loss=MassLoss.from_delta_m(0.10, 0.01))
     cat = make_mock(truth, bands=("V", "I"), rng=np.random.default_rng(3), n_hb=200,
                     obs=ObservationSpec(distance_modulus=15.0, ebv=0.05, depth={"V": 22.5, "I": 21.8}))
@@ -232,7 +232,7 @@ def test_eta_that_strips_every_envelope_says_why(capsys):
 def test_outputs_are_checked_before_any_work(tmp_path, capsys):
     # Issue 15 ("late failures"): fit checked --out only after the sampling, and `mock --plot existing.png`
     # exited 2 but left the table written.  Both are now refused before any work.
-    from hbmodel.cli import main
+    from hbmodel.cli.main import main
     (tmp_path / "old.png").write_bytes(b"not a figure")
     table = tmp_path / "m.ecsv"
     assert main(["mock", "--feh", "-1.5", "--age", "12", "--eta", "0.4", "--n-hb", "50", "--bands", "V,I",
@@ -255,7 +255,7 @@ def test_missing_values_are_dropped_counted_and_bounded(tmp_path, capsys):
     import numpy as np
     from astropy.table import Table
 
-    from hbmodel.cli import main
+    from hbmodel.cli.main import main
     cat = tmp_path / "m.ecsv"
     assert main(["mock", "--feh", "-1.5", "--age", "12", "--eta", "0.4", "--n-hb", "150", "--bands", "V,I",
                  "--distance-modulus", "15", "--seed", "3", "--out", str(cat)]) == 0

@@ -1,4 +1,4 @@
-"""Tests of hbmodel.clump_lf, the unbinned red-clump luminosity-function fitter.
+"""Tests of hbmodel.inference.clump_lf, the unbinned red-clump luminosity-function fitter.
 
 Synthetic clump-region luminosity functions are drawn here with numpy alone (independently of the fitter):
 a Gaussian clump of sigma 0.15 mag on an exponential RGB background of slope B = 0.65 per mag in I
@@ -14,7 +14,8 @@ import json
 import numpy as np
 import pytest
 
-from hbmodel.clump_lf import ClumpLFResult, fit_clump_lf, plot_clump_lf
+from hbmodel.inference.clump_lf import ClumpLFResult, fit_clump_lf
+from hbmodel.outputs.plots import plot_clump_lf
 
 MC, SIG, B = 15.5, 0.15, 0.65
 LO, HI = MC - 1.5, MC + 1.5

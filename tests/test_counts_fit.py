@@ -1,4 +1,4 @@
-"""``hbmodel fit --counts``: eta, its spread and helium from catalogue numbers (hbmodel.counts_fit)."""
+"""``hbmodel fit --counts``: eta, its spread and helium from catalogue numbers (hbmodel.inference.counts_fit)."""
 from __future__ import annotations
 
 import json
@@ -9,9 +9,9 @@ import sys
 import numpy as np
 import pytest
 
-from hbmodel.counts_fit import (ClusterCounts, CountsEmulator, _log_p_diff, counts_from_rows, fit_counts,
+from hbmodel.inference.counts_fit import (ClusterCounts, CountsEmulator, _log_p_diff, counts_from_rows, fit_counts,
                                 hierarchical_eta, sbc_counts, simulate_counts)
-from hbmodel.population import MassLoss, Population
+from hbmodel.populations.population import MassLoss, Population
 
 
 def _cli(*args, cwd=None):
@@ -49,8 +49,8 @@ def test_emulator_follows_the_second_parameter_of_age():
 def test_emulator_r_parameter_and_blue_tail_match_the_model():
     """R = N_HB/N_RGB (Iben 1968, Nature 220, 143; Buzzoni et al. 1983) from predict within 1 %, and the
     99th percentile of the HB-time distribution of log Teff (the hottest of ~100 HB stars) within 2 %."""
-    from hbmodel.counts_fit import _blue_tail_logteff
-    from hbmodel.morphology import weighted_quantile
+    from hbmodel.inference.counts_fit import _blue_tail_logteff
+    from hbmodel.populations.morphology import weighted_quantile
     emu = CountsEmulator(-1.5, 0.3, [12.5], teff_hist=True, rgb=True)
     for eta in (0.45, 0.6):
         o = emu.observables(eta, 0.03, hist=True)
@@ -65,7 +65,7 @@ def test_emulator_r_parameter_and_blue_tail_match_the_model():
 def test_r_parameter_and_blue_tail_enter_the_fit():
     """An HB ratio alone at [Fe/H] -1.5 leaves eta and its spread degenerate; the hottest HB star (the extent
     of the blue tail) breaks the degeneracy: the fit with it recovers the injected eta = 0.60."""
-    from hbmodel.counts_fit import _blue_tail_logteff
+    from hbmodel.inference.counts_fit import _blue_tail_logteff
     emu = CountsEmulator(-1.5, 0.3, [12.5], teff_hist=True, rgb=True)
     o = emu.observables(0.60, 0.03, hist=True)
     n_hb = 300
@@ -228,7 +228,7 @@ def test_benchmark_population_eta_agrees_with_mcdonald_zijlstra_2015(tmp_path):
     Zijlstra 2015, MNRAS 448, 502 (abstract, read: median 0.477 among 56 GCs, systematic +0.050/-0.062;
     sigma = that systematic and our interval in quadrature), and the scatter among clusters within 2 sigma
     of their standard deviation 0.070 (whose own sampling error over 56 clusters is 0.070 / sqrt(2 x 55))."""
-    from hbmodel.counts_fit import benchmark_counts, run_counts_table
+    from hbmodel.inference.counts_fit import benchmark_counts, run_counts_table
     clusters = benchmark_counts(role="check")
     assert len(clusters) >= 10
     summary, hier = run_counts_table(clusters, tmp_path / "bench", eta_sd_fixed=0.045, max_steps=3000,

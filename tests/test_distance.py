@@ -6,10 +6,10 @@ import sys
 import numpy as np
 import pytest
 
-from hbmodel.classify import CHeBClassifier
-from hbmodel.clump_distance import measure_distance
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.inference.classify import CHeBClassifier
+from hbmodel.inference.clump_distance import measure_distance
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 POP = Population(0.0, 4.0, mass_loss=MassLoss.from_eta(0.3, 0.03))
 
@@ -52,7 +52,7 @@ def test_distance_bias_over_many_seeds():
 def test_population_correction_direction():
     # Girardi & Salaris 2001, MNRAS 323, 109 (from memory): an old (10 Gyr) clump is fainter in I than a
     # ~2-4 Gyr one, and the metal-rich clump is fainter in I at fixed age.
-    from hbmodel.clump_distance import clump_model
+    from hbmodel.inference.clump_distance import clump_model
     old = clump_model(Population(0.0, 10.0, mass_loss=MassLoss.from_eta(0.3, 0.03)), "I").peak_absmag
     mid = clump_model(Population(0.0, 3.0, mass_loss=MassLoss.from_eta(0.3, 0.03)), "I").peak_absmag
     rich = clump_model(Population(0.35, 3.0, mass_loss=MassLoss.from_eta(0.3, 0.03)), "I").peak_absmag
@@ -117,19 +117,19 @@ def test_distance_cli_json(tmp_path):
 def test_distance_out_dir_is_all_or_nothing(tmp_path, capsys, monkeypatch):
     # behaviour: a failure while writing the products (here the LF figure) leaves no half-written folder,
     # and a good run writes them all
-    import hbmodel.plots
-    from hbmodel.cli import main
+    import hbmodel.outputs.plots
+    from hbmodel.cli.main import main
     _field(5).write(tmp_path / "f.ecsv")
     args = ["distance", str(tmp_path / "f.ecsv"), "--band", "Ks", "--feh", "0", "--age", "4"]
-    good = hbmodel.plots.plot_clump_lf
+    good = hbmodel.outputs.plots.plot_clump_lf
 
     def broken(*a, **k):
         raise RuntimeError("figure failed")
-    monkeypatch.setattr(hbmodel.plots, "plot_clump_lf", broken)
+    monkeypatch.setattr(hbmodel.outputs.plots, "plot_clump_lf", broken)
     assert main(args + ["--out", str(tmp_path / "d")]) != 0
     assert "figure failed" in capsys.readouterr().err
     assert not (tmp_path / "d").exists() and not list(tmp_path.glob(".d.*"))
-    monkeypatch.setattr(hbmodel.plots, "plot_clump_lf", good)
+    monkeypatch.setattr(hbmodel.outputs.plots, "plot_clump_lf", good)
     assert main(args + ["--out", str(tmp_path / "d")]) == 0
     assert {"result.json", "config.json", "lf.png", "lf.pdf", "report.md"} <= {p.name for p in (tmp_path / "d").iterdir()}
 
@@ -139,8 +139,8 @@ def test_lf_fit_finds_the_bump_where_the_population_model_puts_it():
     # In a 6 Gyr, [Fe/H] = -0.2 population the model's bump lies ~0.39 mag below the clump in I, outside the
     # fixed 0.5-1.0 mag range (memory of Nataf et al. 2013's bulge value 0.74 mag): with that range the bump
     # was pinned on its bound (bump_ratio = 0) and the fit flagged unclean.
-    from hbmodel.clump_distance import model_bump_offset_range
-    from hbmodel.clump_lf import fit_clump_lf
+    from hbmodel.inference.clump_distance import model_bump_offset_range
+    from hbmodel.inference.clump_lf import fit_clump_lf
     pop = Population(-0.2, 6.0, alpha_fe=0.0, mass_loss=MassLoss.from_eta(0.3, 0.03))
     cat = make_mock(pop, bands=("I", "V"), rng=np.random.default_rng(5), n_hb=1200,
                     obs=ObservationSpec(distance_modulus=13.1, ebv=0.4, ebv_sd=0.04, depth={"I": 19.5, "V": 20.5},

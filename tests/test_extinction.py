@@ -2,9 +2,9 @@
 import numpy as np
 import pytest
 
-from hbmodel.extinction import (LAWS, apparent_magnitudes, extinction_mag, extinction_ratio,
+from hbmodel.photometry.extinction import (LAWS, apparent_magnitudes, extinction_mag, extinction_ratio,
                                 law_curve, passband)
-from hbmodel.photometry import BAND_NAMES, absolute_magnitudes, get_band
+from hbmodel.photometry.magnitudes import BAND_NAMES, absolute_magnitudes, get_band
 
 
 def test_laws_tuple():

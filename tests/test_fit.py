@@ -1,6 +1,6 @@
-"""Mass-loss inference (hbmodel.fit / hbmodel fit): injection-recovery, masses path, CLI, bad input.
+"""Mass-loss inference (hbmodel.inference.mass_loss_fit / hbmodel fit): injection-recovery, masses path, CLI, bad input.
 
-Mocks come from ``hbmodel.mock.make_mock`` (Population.sample: Monte-Carlo stars, a different code path from
+Mocks come from ``hbmodel.observation.mock.make_mock`` (Population.sample: Monte-Carlo stars, a different code path from
 the deterministic surrogate the fit uses), so recovery checks the surrogate as well as the estimator.
 """
 import json
@@ -9,11 +9,11 @@ import numpy as np
 import pytest
 from astropy.table import Table
 
-from hbmodel.cli import main
-from hbmodel.fit import MassLossFit, Priors
-from hbmodel.likelihood import hat_gaussian_weights
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.cli.main import main
+from hbmodel.inference.mass_loss_fit import MassLossFit, Priors
+from hbmodel.inference.likelihood import hat_gaussian_weights
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 GC = dict(feh=-1.6, age=12.5, alpha=0.3)      # metal-poor blue/intermediate HB
 RC = dict(feh=0.0, age=8.0, alpha=0.0)        # metal-rich red clump
@@ -176,13 +176,13 @@ def test_cli_json_and_out_dir(tmp_path, capsys):
 def test_cli_out_dir_is_all_or_nothing(tmp_path, capsys, monkeypatch):
     # a failure while writing the products (here the posterior-predictive figure) leaves no half-written
     # result directory behind (behaviour: the products are staged and renamed into place at the end)
-    import hbmodel.plots
+    import hbmodel.outputs.plots
     path = _write_mock(tmp_path)
     out = tmp_path / "res"
 
     def broken(*a, **k):
         raise RuntimeError("figure failed")
-    monkeypatch.setattr(hbmodel.plots, "plot_posterior_predictive", broken)
+    monkeypatch.setattr(hbmodel.outputs.plots, "plot_posterior_predictive", broken)
     assert main(["fit", str(path), *BASE, "--no-compare", "--ebv-spread", "none", "--out", str(out)]) != 0
     assert "figure failed" in capsys.readouterr().err
     assert not out.exists() and not list(tmp_path.glob(".res*"))
@@ -266,7 +266,7 @@ def test_surrogate_hb_nodes_follow_the_population_physics():
     # the HB is kept blue of the RGB and the early AGB is placed against the RGB of the tip mass.  Without
     # that the surrogate lacked the clump's bright tail (14 % of the stars) and red-clump fits of 3,000 stars
     # came out at dM = 0.14 Msun for a true 0.10.
-    from hbmodel.likelihood import _intrinsic_nodes
+    from hbmodel.inference.likelihood import _intrinsic_nodes
     pop = Population(0.0, 8.0, alpha_fe=0.0, mass_loss=MassLoss.from_delta_m(0.10, 0.01))
     sub = pop.subpopulations[0]
     st = pop.model_stars(phases=("hb", "agb"))
@@ -304,7 +304,7 @@ def test_errors_in_the_wrong_unit_are_refused(tmp_path, case, capsys):
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and "millimag" in err and "flux over error" in err
     # the same catalogue with its errors in magnitudes passes the check
-    from hbmodel.fit import check_error_scale
+    from hbmodel.inference.mass_loss_fit import check_error_scale
     from astropy.table import Table
     t = Table.read(good)
     c, m = np.asarray(t["V"]) - np.asarray(t["I"]), np.asarray(t["V"])
@@ -314,7 +314,7 @@ def test_errors_in_the_wrong_unit_are_refused(tmp_path, case, capsys):
 # ----------------------------------------------------------------------------- differential reddening
 def _blob_likelihood(sd_px=1.5):
     """A CMDLikelihood on a hand-made surrogate whose only image is a round Gaussian blob (no model physics)."""
-    from hbmodel.likelihood import CMDLikelihood, HBSurrogate
+    from hbmodel.inference.likelihood import CMDLikelihood, HBSurrogate
     edges_c = np.linspace(-1.0, 1.0, 201)
     edges_m = np.linspace(-2.0, 2.0, 401)
     cc = 0.5 * (edges_c[1:] + edges_c[:-1])

@@ -1,10 +1,10 @@
-"""The fit's independence proposal (hbmodel.fit._IndependenceProposal): the log density it hands to the
+"""The fit's independence proposal (hbmodel.inference.mass_loss_fit._IndependenceProposal): the log density it hands to the
 Metropolis-Hastings acceptance must be that of the points it draws -- checked against scipy's
 multivariate Student t (reference library) and, folded into a prior box, against a histogram of draws."""
 import numpy as np
 from scipy.stats import multivariate_t
 
-from hbmodel.fit import _IndependenceProposal
+from hbmodel.inference.mass_loss_fit import _IndependenceProposal
 
 MEAN = np.array([0.004, 0.5])
 COV = np.array([[0.01 ** 2, 0.3 * 0.01 * 0.1], [0.3 * 0.01 * 0.1, 0.1 ** 2]])

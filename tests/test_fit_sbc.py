@@ -8,10 +8,10 @@ a few minutes.  Well-calibrated 68% intervals contain the truth 68% of the time;
 import numpy as np
 import pytest
 
-from hbmodel.fit import MassLossFit, Priors
-from hbmodel.likelihood import ErrorModel
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.inference.mass_loss_fit import MassLossFit, Priors
+from hbmodel.inference.likelihood import ErrorModel
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 
 @pytest.mark.slow

@@ -1,4 +1,4 @@
-"""Tests for hbmodel.io: catalogue reading, validation, atomic and reproducible writing."""
+"""Tests for hbmodel.io.catalogues: catalogue reading, validation, atomic and reproducible writing."""
 from __future__ import annotations
 
 import datetime
@@ -16,8 +16,7 @@ from astropy.table import Table
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from hbmodel import io as hio
-
+from hbmodel.io import catalogues as hio
 TABLE_EXTS = ["csv", "ecsv", "fits", "fits.gz", "vot", "xml", "parquet", "csv.gz"]
 
 

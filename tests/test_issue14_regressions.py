@@ -6,8 +6,8 @@ import sys
 import numpy as np
 import pytest
 
-from hbmodel.mock import make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.observation.mock import make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 
 def _median_hb_mass(pop, seed, n_hb=3000):
@@ -50,7 +50,7 @@ def test_bug1_other_defining_fields_rebuild_the_population():
 def test_bug2_priors_out_of_range_are_rejected_with_the_valid_range(name, value, valid):
     # Bug 2: `not 0 <= lo and hi <= 1` parsed as `(not 0 <= lo) and hi <= 1`, so
     # Priors(helium_fraction=(0, 2)) was accepted.  Every bounded range must name itself and its bounds.
-    from hbmodel.fit import Priors
+    from hbmodel.inference.mass_loss_fit import Priors
     with pytest.raises(ValueError) as err:
         Priors(**{name: value})
     assert name in str(err.value) and valid in str(err.value)
@@ -58,7 +58,7 @@ def test_bug2_priors_out_of_range_are_rejected_with_the_valid_range(name, value,
 
 def test_bug2_priors_at_the_edges_are_accepted():
     # Bug 2, the other side: the widest valid ranges stay valid.
-    from hbmodel.fit import Priors
+    from hbmodel.inference.mass_loss_fit import Priors
     p = Priors(helium_fraction=(0.0, 1.0), delta_y=(0.0, 0.15), field_fraction=(0.0, 0.99), mass_loss=(0.0, 0.4))
     assert p.helium_fraction == (0.0, 1.0) and p.delta_y == (0.0, 0.15)
 
@@ -73,8 +73,8 @@ def test_bug3_cli_works_without_tomllib(tmp_path):
     # Bug 3: requires-python >= 3.10 but commands/demo.py imported tomllib (3.11+) at module level, so on
     # Python 3.10 every command crashed.  Simulate 3.10 (no tomllib, no tomli): --help must still work.
     code = ("import sys; sys.modules['tomllib'] = None; sys.modules['tomli'] = None\n"
-            "import hbmodel.commands.demo\n"
-            "from hbmodel.cli import main\n"
+            "import hbmodel.cli.demo\n"
+            "from hbmodel.cli.main import main\n"
             "sys.exit(main(['--help']))\n")
     res = _run_python(code, tmp_path)
     assert res.returncode == 0, res.stderr
@@ -86,9 +86,9 @@ def test_bug3_toml_falls_back_to_tomli(tmp_path):
     # (stood in for here by the standard-library parser registered under the name tomli).
     (tmp_path / "cfg.toml").write_text("feh = \"oops\"\n")
     code = ("import sys, tomllib; sys.modules['tomli'] = tomllib; sys.modules['tomllib'] = None\n"
-            "from hbmodel.commands.demo import scenario\n"
+            "from hbmodel.cli.demo import scenario\n"
             "assert isinstance(scenario(), dict) and scenario()\n"
-            "from hbmodel.cli import main\n"
+            "from hbmodel.cli.main import main\n"
             "sys.exit(main(['predict', '--config', 'cfg.toml', '--age', '12']))\n")
     res = _run_python(code, tmp_path)
     # the config file was read: its bad value is reported as a usage error naming --feh
@@ -100,7 +100,7 @@ def test_bug3_no_toml_parser_is_a_one_line_error(tmp_path):
     # Bug 3, neither parser: a --config file gives a clear one-line error and exit 2, never a traceback.
     (tmp_path / "cfg.toml").write_text("feh = -1.5\n")
     code = ("import sys; sys.modules['tomllib'] = None; sys.modules['tomli'] = None\n"
-            "from hbmodel.cli import main\n"
+            "from hbmodel.cli.main import main\n"
             "sys.exit(main(['predict', '--config', 'cfg.toml', '--age', '12', '--eta', '0.4']))\n")
     res = _run_python(code, tmp_path)
     assert res.returncode == 2
@@ -117,12 +117,12 @@ import matplotlib
 matplotlib.use("svg")
 import numpy as np
 from astropy.table import Table
-from hbmodel import plots
-from hbmodel.batch import summary_figure
-from hbmodel.cli import main
-from hbmodel.mock import make_mock
-from hbmodel.plot_style import new_figure
-from hbmodel.population import MassLoss, Population
+from hbmodel.outputs import plots
+from hbmodel.io.jobs import summary_figure
+from hbmodel.cli.main import main
+from hbmodel.observation.mock import make_mock
+from hbmodel.io.figures import new_figure
+from hbmodel.populations.population import MassLoss, Population
 pop = Population(-1.6, 12.5, alpha_fe=0.3, mass_loss=MassLoss.from_eta(0.45, 0.03))
 t = make_mock(pop, bands=("V", "I"), rng=np.random.default_rng(7), n_hb=100)
 plots.plot_cmd(t, "V", ("V", "I"))
@@ -143,7 +143,7 @@ print(matplotlib.get_backend())
 
 def _clump_grid_table(tmp_path, spec, name):
     from astropy.table import Table
-    from hbmodel.cli import main
+    from hbmodel.cli.main import main
     out = tmp_path / name
     assert main(["predict", "--feh", "0", "--age", "4", "--eta", "0.3", "--bands", "I",
                  "--clump-grid", spec, "--out", str(out)]) == 0
@@ -166,7 +166,7 @@ def test_bug5_clump_grid_accepts_either_order_and_spaces(tmp_path):
                                   "age=2:6:4;feh=0", "", "age=,feh=0"])
 def test_bug5_bad_clump_grid_is_a_one_line_usage_error(spec, tmp_path, capsys):
     # Bug 5, bad specifications: one line naming --clump-grid, exit 2, no grid written.
-    from hbmodel.cli import main
+    from hbmodel.cli.main import main
     rc = main(["predict", "--feh", "0", "--age", "4", "--eta", "0.3", "--clump-grid", spec,
                "--out", str(tmp_path / "g")])
     err = capsys.readouterr().err.strip().splitlines()

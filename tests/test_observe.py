@@ -1,4 +1,4 @@
-"""Tests for hbmodel.observe: photometric errors, completeness, reddening, binaries, field stars.
+"""Tests for hbmodel.observation.effects: photometric errors, completeness, reddening, binaries, field stars.
 
 The statistical checks are standard goodness-of-fit tests (common practice): Kolmogorov-Smirnov
 (scipy.stats.kstest) for distribution shapes, chi-square with binomial variances for detection
@@ -14,8 +14,8 @@ import pytest
 from astropy.table import Table
 from scipy import stats
 
-from hbmodel import observe as ob
-from hbmodel.io import write_table
+from hbmodel.observation import effects as ob
+from hbmodel.io.catalogues import write_table
 
 # 2.5 log10(2) = 0.7526 mag: two equal stars are twice as bright (Pogson 1856, MNRAS 17, 12)
 EQUAL_PAIR_BRIGHTENING_MAG = 2.5 * math.log10(2.0)

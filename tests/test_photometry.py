@@ -2,8 +2,8 @@
 import numpy as np
 import pytest
 
-from hbmodel import photometry as ph
-from hbmodel.photometry import (BAND_NAMES, M_BOL_SUN, absolute_magnitudes,
+from hbmodel.photometry import magnitudes as ph
+from hbmodel.photometry.magnitudes import (BAND_NAMES, M_BOL_SUN, absolute_magnitudes,
                                 bolometric_correction, colour, get_band)
 
 SUN = (5772.0, 4.44, 0.0)          # IAU 2015 Resolution B3 nominal Teff (Prsa et al. 2016)

@@ -3,12 +3,12 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from hbmodel import giant_branch as gb
-from hbmodel import hb_evolution as hbe
-from hbmodel.composition import Composition, metallicity_mh
-from hbmodel.ignition import ignition_core_mass_msun, transition_mass_msun
-from hbmodel.mass_loss import eta_from_mass_loss, integrate_rgb_mass_loss, mass_loss_from_eta
-from hbmodel.zahb import zahb_logl, zahb_logteff, zahb_state
+from hbmodel.physics import giant_branch as gb
+from hbmodel.physics import hb_evolution as hbe
+from hbmodel.physics.composition import Composition, metallicity_mh
+from hbmodel.physics.ignition import ignition_core_mass_msun, transition_mass_msun
+from hbmodel.physics.mass_loss import eta_from_mass_loss, integrate_rgb_mass_loss, mass_loss_from_eta
+from hbmodel.physics.zahb import zahb_logl, zahb_logteff, zahb_state
 
 
 def test_salaris_alpha_scaling():

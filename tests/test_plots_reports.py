@@ -9,15 +9,15 @@ import re
 import numpy as np
 import pytest
 
-from hbmodel import plots
-from hbmodel.cli import main
-from hbmodel.fit import MassLossFit, Priors
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.plot_style import (COLUMN_WIDTH_IN, OKABE_ITO, PAGE_WIDTH_IN, format_feh, legend_of, new_figure,
+from hbmodel.outputs import plots
+from hbmodel.cli.main import main
+from hbmodel.inference.mass_loss_fit import MassLossFit, Priors
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.io.figures import (COLUMN_WIDTH_IN, OKABE_ITO, PAGE_WIDTH_IN, format_feh, legend_of, new_figure,
                                 points_under_legend)
-from hbmodel.population import MassLoss, Population
-from hbmodel.quantities import axis_label
-from hbmodel.reports import (_comparison_lines, distance_error_budget, distance_report, fit_report,
+from hbmodel.populations.population import MassLoss, Population
+from hbmodel.core.quantities import axis_label
+from hbmodel.outputs.reports import (_comparison_lines, distance_error_budget, distance_report, fit_report,
                              format_interval, format_value, lf_failed_components, lf_warning, markdown_table)
 
 GC = dict(feh=-1.6, age=12.5, alpha=0.3)      # metal-poor globular cluster: blue-to-red HB, RR Lyrae
@@ -161,8 +161,8 @@ def test_clump_grid_legend_formats_feh_and_names_eta():
 # ------------------------------------------------------------------------------------ clump LF
 @pytest.fixture(scope="module")
 def clump_lf():
-    from hbmodel.clump_lf import fit_clump_lf
-    from hbmodel.commands.demo import _catalog
+    from hbmodel.inference.clump_lf import fit_clump_lf
+    from hbmodel.cli.demo import _catalog
     m = np.asarray(_catalog("corvid_east.ecsv")["Ks"], float)
     return m, fit_clump_lf(m)
 
@@ -309,7 +309,7 @@ def test_fit_report_tables_units_region_and_goodness_of_fit_first(fitted):
 
 
 def test_convergence_table_prints_integer_n_eff():
-    from hbmodel.reports import _convergence_lines
+    from hbmodel.outputs.reports import _convergence_lines
     lines = _convergence_lines({"autocorr_time": {"mass_loss": 23.19, "field_fraction": float("nan")},
                                 "n_eff": 901.5360201049666, "acceptance": 0.39, "n_steps": 1500,
                                 "converged": False}, "emcee")
@@ -344,8 +344,8 @@ def test_fit_text_summary_rounds_and_prints_integer_n_eff(tmp_path, capsys, fitt
 
 
 def test_distance_report_splits_errors_and_names_every_input(tmp_path, capsys):
-    from hbmodel.clump_distance import CALIBRATION_SD_MAG
-    from hbmodel.commands.demo import _catalog
+    from hbmodel.inference.clump_distance import CALIBRATION_SD_MAG
+    from hbmodel.cli.demo import _catalog
     cat = tmp_path / "field.ecsv"
     _catalog("corvid_east.ecsv").write(cat)
     out = tmp_path / "d"
@@ -374,7 +374,7 @@ def test_distance_report_splits_errors_and_names_every_input(tmp_path, capsys):
 
 
 def test_error_budget_adds_up():
-    from hbmodel.clump_distance import CALIBRATION_SD_MAG, DistanceResult
+    from hbmodel.inference.clump_distance import CALIBRATION_SD_MAG, DistanceResult
 
     class _LF:
         peak_mag_err_boot = None
@@ -388,8 +388,8 @@ def test_error_budget_adds_up():
 
 def test_report_for_demo_distance_has_no_bare_floats(clump_lf):
     """Every number in the distance report has at most the decimals its error supports."""
-    from hbmodel.clump_distance import measure_distance
-    from hbmodel.commands.demo import _catalog
+    from hbmodel.inference.clump_distance import measure_distance
+    from hbmodel.cli.demo import _catalog
     t = _catalog("corvid_east.ecsv")
     pop = Population.from_history(np.geomspace(1, 10, 8), np.gradient(np.geomspace(1, 10, 8)), 0.0,
                                   mass_loss=MassLoss.from_eta(0.3, 0.03))
@@ -403,7 +403,7 @@ def test_batch_summary_panels_carry_units():
     # regression: summary.png labelled its panels with bare column names
     from astropy.table import Table
 
-    from hbmodel.batch import summary_figure
+    from hbmodel.io.jobs import summary_figure
     t = Table({"name": ["f1", "f2"], "status": ["done", "done"], "reason": ["", ""],
                "distance_modulus": [13.8, 14.1], "distance_modulus_lo": [13.75, 14.0],
                "distance_modulus_hi": [13.85, 14.2], "ebv": [0.3, 0.35], "distance_kpc": [5.8, 6.6]})
@@ -414,8 +414,8 @@ def test_batch_summary_panels_carry_units():
 
 
 def test_html_report_is_one_offline_file(tmp_path):
-    from hbmodel.plot_style import save_figure
-    from hbmodel.reports import markdown_to_html, write_report
+    from hbmodel.io.figures import save_figure
+    from hbmodel.outputs.reports import markdown_to_html, write_report
     fig, ax = new_figure()
     ax.plot([0, 1], [0, 1])
     save_figure(fig, tmp_path / "f.png", pdf=False)

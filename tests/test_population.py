@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from hbmodel.mock import ObservationSpec, make_mock
-from hbmodel.population import MassLoss, Population
+from hbmodel.observation.mock import ObservationSpec, make_mock
+from hbmodel.populations.population import MassLoss, Population
 
 
 def pop(feh=-1.5, age=12.5, eta=0.45, sd=0.05, **kw):
@@ -75,7 +75,7 @@ def test_mock_reproducible_and_error_statistics():
 
 def test_mock_reddening_shift_matches_extinction_library():
     # reference library: dust_extinction F99 at the bands' effective wavelengths (hot-star limit ~ A0)
-    from hbmodel.extinction import extinction_ratio
+    from hbmodel.photometry.extinction import extinction_ratio
     p = pop(sd=0.05)
     kw = dict(bands=("V", "I"), n_hb=400)
     a = make_mock(p, rng=np.random.default_rng(9), obs=ObservationSpec(distance_modulus=15.0), **kw)
@@ -151,6 +151,6 @@ def test_mock_writes_every_format_reproducibly(tmp_path, ext):
                               text=True)
         assert proc.returncode == 0, proc.stderr
     assert a.read_bytes() == b.read_bytes()
-    from hbmodel.io import read_catalog
+    from hbmodel.io.catalogues import read_catalog
     t = read_catalog(a, required=("V", "V_err", "I", "rr_mode"))
     assert np.sum(np.asarray(t["phase"]).astype(str) == "field") == 5

@@ -13,11 +13,11 @@ import numpy as np
 import pyarrow.parquet as pq
 import pytest
 
-from hbmodel import resources
-from hbmodel.cli import main
-from hbmodel.mock import ObservationSpec, make_mock, mock_estimate, plan_chunked_mock, write_chunked_mock
-from hbmodel.population import MassLoss, Population
-from hbmodel.resources import ResourceError, parse_size
+from hbmodel.core import limits as resources
+from hbmodel.cli.main import main
+from hbmodel.observation.mock import ObservationSpec, make_mock, mock_estimate, plan_chunked_mock, write_chunked_mock
+from hbmodel.populations.population import MassLoss, Population
+from hbmodel.core.limits import ResourceError, parse_size
 
 POP_ARGS = ["--feh", "-1.6", "--age", "12.5", "--eta", "0.45"]
 GUARD_S = 60  # a run that is refused takes about a second; this only stops a runaway
@@ -201,7 +201,7 @@ def test_chunked_disk_estimate_matches_partitions(tmp_path):
 def test_memory_estimate_bounds_the_real_peak(tmp_path):
     # case: the memory estimate of a mock is an upper bound of the measured peak, and not a wild one
     # VmHWM: the peak resident size of this process image (ru_maxrss would carry the forking parent's)
-    code = ("import sys; from hbmodel.cli import main; "
+    code = ("import sys; from hbmodel.cli.main import main; "
             "rc = main(sys.argv[1:]); "
             "print([int(l.split()[1]) * 1024 for l in open('/proc/self/status') if l.startswith('VmHWM')][0])")
     args = [*POP_ARGS, "--n-hb", "60000", "--bands", "V,I", "--out", "m.parquet"]

@@ -6,9 +6,9 @@ mean RRab period and the RRc fraction with observations -- the periods are never
 import numpy as np
 import pytest
 
-from hbmodel import hb_evolution as hbe
-from hbmodel import pulsation as pu
-from hbmodel.population import MassLoss, Population
+from hbmodel.physics import hb_evolution as hbe
+from hbmodel.physics import pulsation as pu
+from hbmodel.populations.population import MassLoss, Population
 
 ETA_SD = 0.06  # Reimers-eta spread; ~0.03 Msun in HB mass at [Fe/H] -1.5 (model's hb_mass_sd)
 
@@ -154,7 +154,7 @@ def test_zahb_mass_at_strip_falls_with_metallicity():
     # RR Lyrae (ZAHB at the strip) are heavier at lower metallicity: Bono, Caputo, Cassisi, Castellani & Marconi,
     # arXiv:astro-ph/9609153 (abstract: Z = 0.01 pulsators more massive than Z = 0.02 ones); pulsation grids of
     # metal-poor RR Lyrae span ~0.58-0.75 Msun (Bono et al. 1997, A&AS 121, 327, CDS ReadMe)
-    from hbmodel.morphology import zahb_at_strip
+    from hbmodel.populations.morphology import zahb_at_strip
     feh = np.array([-2.3, -1.8, -1.3, -0.8, -0.5])
     mass = np.array([zahb_at_strip(Population(f, 12.5, alpha_fe=0.3).subpopulations[0])[2] for f in feh])
     assert np.all(np.diff(mass) < 0)

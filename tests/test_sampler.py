@@ -1,4 +1,4 @@
-"""The tabulated sampler (hbmodel.sampler) against the stage-by-stage reference physics.
+"""The tabulated sampler (hbmodel.populations.sampler) against the stage-by-stage reference physics.
 
 The mock catalogues draw stars from tables; these tests hold the tables to the physics they tabulate
 (photometry to 2e-4 mag, RGB positions to 1e-3 mag) and the draws to the reference sampler
@@ -12,10 +12,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from hbmodel.extinction import extinction_ratio
-from hbmodel.photometry import BAND_NAMES, FixedMetallicityPhotometry, absolute_magnitudes
-from hbmodel.population import MassLoss, Population
-from hbmodel.sampler import PHASE_CODES, StarSampler
+from hbmodel.photometry.extinction import extinction_ratio
+from hbmodel.photometry.magnitudes import BAND_NAMES, FixedMetallicityPhotometry, absolute_magnitudes
+from hbmodel.populations.population import MassLoss, Population
+from hbmodel.populations.sampler import PHASE_CODES, StarSampler
 
 GC = Population(-1.6, 12.5, alpha_fe=0.3, mass_loss=MassLoss.from_eta(0.45, 0.04))
 RC = Population(0.0, 6.0, mass_loss=MassLoss.from_delta_m(0.08, 0.02))

@@ -6,9 +6,9 @@ import math
 import numpy as np
 import pytest
 
-from hbmodel.extinction import AV_MAX, extinction_mag, extinction_ratio, law_curve, passband
-from hbmodel.observe import default_error_law, survey_depth_5sigma
-from hbmodel.photometry import (ALL_BAND_NAMES, BAND_NAMES, FixedMetallicityPhotometry, absolute_magnitudes,
+from hbmodel.photometry.extinction import AV_MAX, extinction_mag, extinction_ratio, law_curve, passband
+from hbmodel.observation.effects import default_error_law, survey_depth_5sigma
+from hbmodel.photometry.magnitudes import (ALL_BAND_NAMES, BAND_NAMES, FixedMetallicityPhotometry, absolute_magnitudes,
                                 band_relations, colours_v, get_band, resolve_band)
 
 NEW_BANDS = ("ACS_F435W", "ACS_F606W", "ACS_F814W", "UVIS_F336W", "UVIS_F438W", "UVIS_F606W", "UVIS_F814W",
@@ -165,7 +165,7 @@ def test_survey_depths_give_the_published_limits():
 
 # --------------------------------------------------------------------------- commands
 def test_predict_gives_clump_magnitudes_in_survey_bands(capsys):
-    from hbmodel.cli import main
+    from hbmodel.cli.main import main
     rc = main(["predict", "--feh", "-0.1", "--age", "4", "--eta", "0.3", "--bands",
                "SDSS_g,PS1_i,WISE_W1,Ks", "--json"])
     assert rc in (0, None)
@@ -178,7 +178,7 @@ def test_predict_gives_clump_magnitudes_in_survey_bands(capsys):
 
 
 def test_predict_in_an_hst_band_is_a_one_line_refusal(capsys):
-    from hbmodel.cli import main
+    from hbmodel.cli.main import main
     rc = main(["predict", "--feh", "-0.1", "--age", "4", "--eta", "0.3", "--bands", "ACS_F606W,ACS_F814W"])
     err = capsys.readouterr().err
     assert rc not in (0, None) and "no published colour relation" in err and "Traceback" not in err
@@ -188,7 +188,7 @@ def test_predict_in_an_hst_band_is_a_one_line_refusal(capsys):
 @pytest.mark.slow
 def test_mass_loss_is_recovered_from_a_survey_band_mock(tmp_path):
     # injected Reimers eta 0.35 (spread 0.03) in SDSS g, i with the tabulated survey depths; Laplace fit
-    from hbmodel.cli import main
+    from hbmodel.cli.main import main
     cat = tmp_path / "m.ecsv"
     assert main(["mock", "--feh", "-1.0", "--alpha-fe", "0.3", "--age", "11", "--eta", "0.35", "--eta-sd", "0.03",
                  "--n-hb", "300", "--bands", "SDSS_g,SDSS_i", "--distance-modulus", "15", "--ebv", "0.05",

@@ -3,9 +3,9 @@ of the ZAHB (issue 13, items 4-6): physics asserted against published values, so
 import numpy as np
 import pytest
 
-from hbmodel.ignition import ignition_core_mass_msun
-from hbmodel.population import MassLoss, Population
-from hbmodel.zahb import MENV_MIN_MSUN, shell_normalisation, shell_tilt, zahb_logteff
+from hbmodel.physics.ignition import ignition_core_mass_msun
+from hbmodel.populations.population import MassLoss, Population
+from hbmodel.physics.zahb import MENV_MIN_MSUN, shell_normalisation, shell_tilt, zahb_logteff
 
 
 def _zahb_mv(feh):

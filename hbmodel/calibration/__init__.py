@@ -14,9 +14,9 @@ The data flow of this room:
 This room sits above the physics, photometry and population rooms and imports them; nothing
 below imports it.
 """
-from .targets import read_targets, read_clusters, TargetError
-from .evaluators import EVALUATORS, evaluate_row, NotModelled
-from .scorecard import score_rows, Score
+from hbmodel.calibration.targets import read_targets, read_clusters, TargetError
+from hbmodel.calibration.evaluators import EVALUATORS, evaluate_row, NotModelled
+from hbmodel.calibration.scorecard import score_rows, Score
 
 __all__ = ["read_targets", "read_clusters", "TargetError", "EVALUATORS", "evaluate_row", "NotModelled",
            "score_rows", "Score"]

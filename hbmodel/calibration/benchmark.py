@@ -16,10 +16,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .evaluators import ETA_SPREAD_OLD, NotModelled, _Cached, eta_for_hb_ratio
-from .scorecard import sigma_model
-from .._tables import table_cache
-from .targets import read_clusters
+from hbmodel.calibration.evaluators import ETA_SPREAD_OLD, NotModelled, _Cached, eta_for_hb_ratio
+from hbmodel.calibration.scorecard import sigma_model
+from hbmodel.core.tables import table_cache
+from hbmodel.calibration.targets import read_clusters
 
 __all__ = ["ClusterResult", "run_benchmark", "cluster_rows", "cluster_value", "oosterhoff_criterion", "PREDICTED_QUANTITIES"]
 
@@ -88,7 +88,7 @@ def _gc_predictions(feh, eta, age, alpha):
 
 def _eta_for_delta_m(delta_m, feh, age, alpha=0.0):
     """Reimers eta whose integrated RGB loss equals ``delta_m`` (bisection)."""
-    from ..population import MassLoss, Population
+    from hbmodel.populations.population import MassLoss, Population
     lo, hi = 0.0, 1.0
     for _ in range(30):
         mid = 0.5 * (lo + hi)
@@ -162,7 +162,7 @@ def run_benchmark(progress=None, role=None) -> list[ClusterResult]:
                 continue
             results.append(ClusterResult(name, d["kind"], d["role"], feh, age, eta, sat, q, dict(pred), dict(why)))
         else:
-            from .. import giant_branch as gb
+            from hbmodel.physics import giant_branch as gb
             age = q.get("age_gyr", (np.nan,))[0]
             pred, why, eta = {}, {}, np.nan
             try:

@@ -25,7 +25,7 @@ import functools
 
 import numpy as np
 
-from .targets import parse_conditions
+from hbmodel.calibration.targets import parse_conditions
 
 __all__ = ["EVALUATORS", "evaluate_row", "NotModelled", "eta_for_hb_ratio", "old_population"]
 
@@ -61,13 +61,13 @@ def _range(text):
 
 # ----------------------------------------------------------------------------- populations
 def _mass_loss(eta, sd=0.0, law="reimers"):
-    from ..population import MassLoss
+    from hbmodel.populations.population import MassLoss
     return MassLoss.from_eta(eta, sd, law)
 
 
 def local_population(feh=None, ages=(1.0, 10.0), eta=0.3, eta_sd=0.03):
     """Constant star formation over ``ages`` (Gyr) with the local metallicity distribution."""
-    from ..population import Population
+    from hbmodel.populations.population import Population
     a = np.geomspace(ages[0], ages[1], 8)    # denser at young ages, where the clump changes fastest
     sfr = np.gradient(a)
     if feh is None:
@@ -78,19 +78,19 @@ def local_population(feh=None, ages=(1.0, 10.0), eta=0.3, eta_sd=0.03):
 
 
 def bulge_population(eta=0.3, eta_sd=0.03):
-    from ..population import Component, Population
+    from hbmodel.populations.population import Component, Population
     comps = [Component(10.0, -0.4, 0.3, 1.0), Component(10.0, 0.3, 0.0, 1.0)]
     return Population(components=comps, mass_loss=_mass_loss(eta, eta_sd))
 
 
 def old_population(feh, eta, eta_sd=ETA_SPREAD_OLD, age_gyr=12.5, alpha_fe=0.3, helium=None):
-    from ..population import Population
+    from hbmodel.populations.population import Population
     return Population(feh, age_gyr, alpha_fe=alpha_fe, helium=helium, mass_loss=_mass_loss(eta, eta_sd))
 
 
 @functools.lru_cache(maxsize=256)
 def _hb_ratio_cached(feh, eta, eta_sd, age_gyr, alpha_fe, key):
-    from ..morphology import hb_type
+    from hbmodel.populations.morphology import hb_type
     st = old_population(feh, eta, eta_sd, age_gyr, alpha_fe).model_stars(phases=("hb",))
     if not (st.phase == "hb").any():
         return 1.0          # every envelope lost: nothing on the red side (an extreme blue HB)
@@ -99,7 +99,7 @@ def _hb_ratio_cached(feh, eta, eta_sd, age_gyr, alpha_fe, key):
 
 
 def _hb_ratio(feh, eta, eta_sd, age_gyr, alpha_fe):
-    from .._tables import _key
+    from hbmodel.core.tables import _key
     return _hb_ratio_cached(round(feh, 4), round(eta, 6), round(eta_sd, 6), round(age_gyr, 4),
                             round(alpha_fe, 4), _key())
 
@@ -166,7 +166,7 @@ class _Cached:
         if kind == "bulge":
             return bulge_population()
         if kind == "simple":
-            from ..population import Population
+            from hbmodel.populations.population import Population
             feh, age, alpha, eta, sd = args
             return Population(feh, age, alpha_fe=alpha, mass_loss=_mass_loss(eta, sd))
         if kind == "old":
@@ -175,11 +175,11 @@ class _Cached:
         raise ValueError(kind)
 
     def predict(self, bands=None):
-        from .._tables import _key
+        from hbmodel.core.tables import _key
         return _predict_cached(self, _key())
 
     def model_stars(self):
-        from .._tables import _key
+        from hbmodel.core.tables import _key
         return _stars_cached(self, _key())
 
     def phase_times(self):
@@ -211,14 +211,14 @@ def _stars_cached(cp, key):
 
 
 def _clump_mag(pop, band):
-    from ..photometry import resolve_band
+    from hbmodel.photometry.magnitudes import resolve_band
     try:
         band = resolve_band(band)     # aliases too: a row's 'W1' is the registry's WISE_W1
     except ValueError:
         raise NotModelled(f"band {band} is not in hbmodel's band set") from None
     try:
         if isinstance(pop, _Cached) and band not in TARGET_BANDS:
-            from .._tables import _key
+            from hbmodel.core.tables import _key
             p = _predict_band_cached(pop, band, _key())
         else:
             p = pop.predict(bands=(band,))
@@ -230,7 +230,7 @@ def _clump_mag(pop, band):
 
 
 def _bands():
-    from ..photometry import BAND_NAMES
+    from hbmodel.photometry.magnitudes import BAND_NAMES
     return tuple(BAND_NAMES)
 
 
@@ -263,8 +263,8 @@ def _population_for(row):
 
 # ----------------------------------------------------------------------------- giant branch
 def tip_mass_msun(row):
-    from .. import giant_branch as gb
-    from ..composition import Composition
+    from hbmodel.physics import giant_branch as gb
+    from hbmodel.physics.composition import Composition
     mh = Composition(_f(row, "feh", 0.0), _f(row, "alpha_fe", 0.0)).mh
     if np.isnan(_f(row, "age_gyr")):
         raise NotModelled("no age given")
@@ -272,14 +272,14 @@ def tip_mass_msun(row):
 
 
 def ms_lifetime_gyr(row):
-    from .. import giant_branch as gb
+    from hbmodel.physics import giant_branch as gb
     return float(gb.ms_lifetime_gyr(_f(row, "mass_msun", 1.0), _f(row, "feh", 0.0)))
 
 
 def _rgb_locus(feh, alpha_fe=0.3, age_gyr=12.5, band_pair=("V", "I")):
-    from .. import giant_branch as gb
-    from ..composition import Composition
-    from ..photometry import absolute_magnitudes
+    from hbmodel.physics import giant_branch as gb
+    from hbmodel.physics.composition import Composition
+    from hbmodel.photometry.magnitudes import absolute_magnitudes
     mh = Composition(feh, alpha_fe).mh
     m_tip = float(gb.tip_mass_msun(age_gyr, mh))
     logl_tip = float(gb.rgb_tip_logl(mh))
@@ -315,14 +315,14 @@ def rgb_colour_at_mag(row):
 
 # ----------------------------------------------------------------------------- ignition
 def flash_core_mass_msun(row):
-    from ..composition import Composition
-    from ..ignition import ignition_core_mass_msun
+    from hbmodel.physics.composition import Composition
+    from hbmodel.physics.ignition import ignition_core_mass_msun
     mh = Composition(_f(row, "feh", 0.0), _f(row, "alpha_fe", 0.0)).mh
     return float(ignition_core_mass_msun(_f(row, "mass_msun", 0.8), mh))
 
 
 def _core_curve(row):
-    from ..ignition import ignition_core_mass_msun
+    from hbmodel.physics.ignition import ignition_core_mass_msun
     m = np.linspace(1.0, 3.0, 801)
     return m, ignition_core_mass_msun(m, _f(row, "feh", 0.0))
 
@@ -338,15 +338,15 @@ def mass_at_min_core_msun(row):
 
 # ----------------------------------------------------------------------------- mass loss
 def integrated_mass_loss_msun(row):
-    from ..mass_loss import LAWS  # noqa: F401  (validates the law names through MassLoss)
-    from ..population import Population
+    from hbmodel.physics.mass_loss import LAWS  # noqa: F401  (validates the law names through MassLoss)
+    from hbmodel.populations.population import Population
     c = _cond(row)
     law = c.get("law", "reimers")
     if "eta" not in c:
         raise NotModelled("no mass-loss efficiency given: a constraint on eta, see the cluster benchmark")
     eta = float(c["eta"])
     if eta < 1e-6:     # the law's coefficient was given (Msun/yr units): convert to its efficiency
-        from ..mass_loss import _law
+        from hbmodel.physics.mass_loss import _law
         eta = eta / _law(law)["coef"]
     age = _f(row, "age_gyr", 12.5)
     pop = Population(_f(row, "feh", 0.0), age, alpha_fe=_f(row, "alpha_fe", 0.0), mass_loss=_mass_loss(eta, 0.0, law))
@@ -380,9 +380,9 @@ def rr_mv_feh_slope(row):
 
 
 def zahb_hot_end_teff_k(row):
-    from ..composition import Composition
-    from ..ignition import ignition_core_mass_msun
-    from ..zahb import MENV_MIN_MSUN, zahb_state
+    from hbmodel.physics.composition import Composition
+    from hbmodel.physics.ignition import ignition_core_mass_msun
+    from hbmodel.physics.zahb import MENV_MIN_MSUN, zahb_state
     mh = Composition(_f(row, "feh", -1.5), _f(row, "alpha_fe", 0.3)).mh
     mc = float(ignition_core_mass_msun(0.82, mh))
     return float(zahb_state(mc + MENV_MIN_MSUN, mc, mh).teff_k)
@@ -390,18 +390,18 @@ def zahb_hot_end_teff_k(row):
 
 # ----------------------------------------------------------------------------- HB evolution, counts
 def _hb_lifetime_at(feh, logteff):
-    from ..composition import Composition
-    from ..hb_evolution import hb_lifetime_myr
-    from ..ignition import ignition_core_mass_msun
+    from hbmodel.physics.composition import Composition
+    from hbmodel.physics.hb_evolution import hb_lifetime_myr
+    from hbmodel.physics.ignition import ignition_core_mass_msun
     mh = Composition(feh, 0.3).mh
     mc = float(ignition_core_mass_msun(0.82, mh))
     return float(hb_lifetime_myr(mc, np.asarray(logteff, float), 0.0))
 
 
 def hb_lifetime_myr(row):
-    from ..composition import Composition
-    from ..ignition import ignition_core_mass_msun
-    from ..zahb import zahb_state
+    from hbmodel.physics.composition import Composition
+    from hbmodel.physics.ignition import ignition_core_mass_msun
+    from hbmodel.physics.zahb import zahb_state
     feh = _f(row, "feh", -1.5)
     mh = Composition(feh, 0.3).mh
     mc = float(ignition_core_mass_msun(0.82, mh))
@@ -441,7 +441,7 @@ def rrc_fraction(row):
 def period_shift_hb_type(row):
     """Shift in <log P_ab> at fixed Teff between Oosterhoff II and I conditions (van Albada & Baker 1971:
     d log P = 0.84 d log L - 0.68 d log M at fixed Teff)."""
-    from ..pulsation import _c
+    from hbmodel.physics.pulsation import _c
     c = _c()
     out = []
     for oo in ("II", "I"):
@@ -457,8 +457,8 @@ def period_shift_hb_type(row):
 
 
 def _edge_at_zahb(feh, edge):
-    from ..morphology import zahb_at_strip
-    from ..pulsation import _edge
+    from hbmodel.populations.morphology import zahb_at_strip
+    from hbmodel.physics.pulsation import _edge
     pop = _rr_population(feh)
     lz, tz, mz = zahb_at_strip(pop.subpopulations[0])
     return float(_edge(edge, lz, mz)), lz, mz
@@ -476,7 +476,7 @@ def strip_edge_logteff_feh_slope(row):
 
 def pab_feh_slope(row):
     """d log P / d[Fe/H] of ZAHB stars at the fundamental blue edge (Sandage 1993's form)."""
-    from ..pulsation import fundamentalised_period_days
+    from hbmodel.physics.pulsation import fundamentalised_period_days
     edge = _cond(row).get("edge", "fbe")
     lp = []
     for feh in (-2.2, -1.2):
@@ -585,8 +585,8 @@ def extinction_ratio_av(row):
     """A_band / A_V of the band in the row (low-extinction limit) for a blackbody of ``teff_k`` (conditions;
     default 7,000 K), law ``law`` (default F99) and ``rv`` (default 3.1).  A_V is the band-integrated V
     extinction at the same Teff, as published tables of A_band/E(B-V) normalise to their V (Landolt) row."""
-    from ..extinction import extinction_ratio
-    from ..photometry import resolve_band
+    from hbmodel.photometry.extinction import extinction_ratio
+    from hbmodel.photometry.magnitudes import resolve_band
     c = _cond(row)
     try:
         band = resolve_band(row["band"])

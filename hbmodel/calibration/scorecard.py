@@ -12,8 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._tables import table_text
-from .evaluators import NotModelled, evaluate_row
+from hbmodel.core.tables import table_text
+from hbmodel.calibration.evaluators import NotModelled, evaluate_row
 
 __all__ = ["Score", "score_rows", "sigma_model", "PASS_SIGMA"]
 

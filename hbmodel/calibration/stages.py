@@ -15,11 +15,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.optimize import least_squares
 
-from .._tables import _shipped_text, trial_tables
-from .coefficients import CoefficientTable
-from .evaluators import NotModelled, evaluate_row
-from .scorecard import sigma_model
-from .targets import read_targets
+from hbmodel.core.tables import _shipped_text, trial_tables
+from hbmodel.calibration.coefficients import CoefficientTable
+from hbmodel.calibration.evaluators import NotModelled, evaluate_row
+from hbmodel.calibration.scorecard import sigma_model
+from hbmodel.calibration.targets import read_targets
 
 __all__ = ["Free", "Stage", "StageResult", "fit_stage", "STAGES", "run_all"]
 
@@ -84,7 +84,7 @@ class Stage:
                 for r in t]
         rows = list(t[np.array(keep, bool)]) if len(t) else []
         if self.cluster_quantities:
-            from .benchmark import cluster_rows
+            from hbmodel.calibration.benchmark import cluster_rows
             rows += cluster_rows("fit", self.cluster_quantities)
         return rows
 
@@ -117,7 +117,7 @@ def _model_quantity(r) -> str:
 def _evaluate(r) -> float:
     """Model value of a target row or of a cluster-benchmark row."""
     if _is_cluster_row(r):
-        from .benchmark import cluster_value
+        from hbmodel.calibration.benchmark import cluster_value
         return cluster_value(r)
     return evaluate_row(r)
 

@@ -1,1 +1,0 @@
-"""One module per ``hbmodel`` sub-command (see :mod:`hbmodel.cli`)."""

@@ -1,0 +1,653 @@
+"""Smooth, deterministic CMD model density of an HB/clump region and its likelihood.
+
+The *surrogate*: for one population (per helium node) the forward model
+(:func:`hbmodel.physics.zahb.zahb_state`, :func:`hbmodel.physics.hb_evolution.hb_track`,
+:func:`~hbmodel.physics.hb_evolution.hb_lifetime_myr`, :func:`~hbmodel.physics.hb_evolution.agb_track`, and the RGB nodes of
+:meth:`hbmodel.populations.population.Population.model_stars`) is evaluated once on a dense grid of HB mass x evolutionary
+phase.  Each HB-mass node becomes a *basis image*: the density, on the intrinsic plane
+(colour_0, M_0) = (first - second band, first band), of the HB and early-AGB stars of that mass per unit birth
+rate (nodes weighted by the time they represent), convolved with the photometric errors (a correlated 2-D
+Gaussian per node: sigma_mag = s1, sigma_colour^2 = s1^2 + s2^2, cov = s1^2 with s1, s2 the catalogue's median
+error-magnitude relation) and a small smoothing floor.  The RGB gets one image per helium node.
+
+For a parameter set the model image is a weighted sum of basis images; the weights are the HB-mass
+distribution (Gaussian in the integrated loss, HB mass = M_tip(age) - dM) integrated against linear "hat"
+functions on the mass grid (exact in closed form, smooth in mean and spread, and still smooth as the spread
+goes to zero).  Distance, reddening and zero-point offsets shift the *stars* (observed -> intrinsic); the
+density is read at the shifted positions by bilinear interpolation and normalised over the shifted fitted
+region with a summed-area table, so the likelihood is continuous in every parameter and free of Monte-Carlo
+noise.
+
+The likelihood is the unbinned mixture likelihood (Dolphin 2002, MNRAS 332, 91 discusses it with the binned
+Poisson form it approximates): p_i = (1 - f) c(m_i) rho(x_i - s) / Z(s) + f / A, with f the field fraction
+(uniform over the region of area A), c the completeness and Z the normalisation over the region.  A binned
+Poisson Hess-diagram statistic (Dolphin 2002, eq. 10) is provided for the residual plot and a goodness-of-fit
+figure.
+
+Differential reddening: each star's E(B-V) scatters about the mean by a Gaussian of sd ``ebv_spread`` (a
+nuisance parameter), which moves it along the reddening vector v = (E(colour)/E(B-V), A_first/E(B-V)).  The
+model density is then the walker's image convolved with that 1-D Gaussian along v: done exactly (for the
+pixelised image) by a Fourier multiplier exp(-2 pi^2 sd^2 (u . f)^2), u = v in pixels, on a zero-padded image
+(no wrap-around).  Its normalisation over the region is the average of the plain one over shifts along v
+(9-node Gauss-Hermite quadrature on the shift tables, which then reach that far).  The convolution is linear,
+so it commutes with the weighted sum of basis images and is applied once per walker.
+
+Validity: two bands; a simple population (one age and composition); the region must lie brighter than the
+faint end of the modelled RGB (log L/Lsun = 0.8): fainter stars (sub-giants, main sequence) are not modelled.
+"""
+from __future__ import annotations
+
+import functools
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import fft as sfft
+from scipy.special import ndtr
+
+from hbmodel.physics import giant_branch as gb
+from hbmodel.physics import hb_evolution as hbe
+from hbmodel.core.tables import read_table
+from hbmodel.populations.population import Population, StarSet
+from hbmodel.physics.zahb import MENV_MIN_MSUN, zahb_state
+
+__all__ = ["ErrorModel", "HBSurrogate", "CMDLikelihood", "hat_gaussian_weights", "build_surrogate",
+           "pixel_for_errors",
+           "hess_poisson_deviance"]
+
+_SQ2PI = np.sqrt(2.0 * np.pi)
+# Gauss-Hermite nodes/weights for the standard normal (probabilists' Hermite, weights summing to 1)
+_GH_T, _GH_W = np.polynomial.hermite_e.hermegauss(9)
+_GH_W = _GH_W / _GH_W.sum()
+
+
+@functools.lru_cache(maxsize=None)
+def fit_constants() -> dict:
+    """Numerical settings of the surrogate (``tables/fit_settings.csv``)."""
+    return {k: float(v[0]) for k, v in read_table("fit_settings.csv").items()}
+
+
+# --------------------------------------------------------------------------- errors
+@dataclass(frozen=True)
+class ErrorModel:
+    """Median photometric error vs observed magnitude per band (piecewise linear, constant beyond ends)."""
+
+    mags: dict
+    sigmas: dict
+
+    @classmethod
+    def from_catalog(cls, mags: dict, errs: dict, bin_mag: float = 0.25, min_per_bin: int = 5):
+        """Median ``<band>_err`` in magnitude bins of each band (the error-magnitude relation)."""
+        mm, ss = {}, {}
+        for b in mags:
+            m = np.asarray(mags[b], float)
+            e = np.asarray(errs[b], float)
+            if m.size == 0:
+                raise ValueError(f"no stars to build the error-magnitude relation of band {b}")
+            lo, hi = np.floor(m.min() / bin_mag) * bin_mag, np.ceil(m.max() / bin_mag) * bin_mag + bin_mag
+            edges = np.arange(lo, hi + 1e-9, bin_mag)
+            idx = np.digitize(m, edges) - 1
+            cen, med = [], []
+            for k in np.unique(idx):  # loop over a few magnitude bins, not stars
+                sel = idx == k
+                if sel.sum() >= min_per_bin:
+                    cen.append(np.median(m[sel]))
+                    med.append(np.median(e[sel]))
+            if not cen:
+                cen, med = [float(np.median(m))], [float(np.median(e))]
+            mm[b] = np.asarray(cen)
+            ss[b] = np.maximum.accumulate(np.asarray(med))  # errors do not fall with magnitude
+        return cls(mm, ss)
+
+    @classmethod
+    def constant(cls, sigma_by_band: dict):
+        return cls({b: np.array([0.0]) for b in sigma_by_band},
+                   {b: np.array([float(s)]) for b, s in sigma_by_band.items()})
+
+    def __call__(self, band, mag):
+        return np.interp(np.asarray(mag, float), self.mags[band], self.sigmas[band])
+
+    def key(self):
+        return tuple((b, tuple(np.round(self.mags[b], 4)), tuple(np.round(self.sigmas[b], 5)))
+                     for b in sorted(self.mags))
+
+
+# --------------------------------------------------------------------------- weights
+def _g(x, mu, sd):
+    """Second antiderivative of the normal pdf: int_{-inf}^{x} Phi((t-mu)/sd) dt."""
+    z = (x - mu) / sd
+    return (x - mu) * ndtr(z) + sd * np.exp(-0.5 * z * z) / _SQ2PI
+
+
+def hat_gaussian_weights(grid, h, mu, sd):
+    """Weights w_k = E[hat_k(m)] for m ~ N(mu, sd) on a uniform grid (spacing ``h``) of hat functions.
+
+    ``mu``, ``sd`` of shape (n,) -> (n, K).  Exact: w_k = [G(m_k+h) - 2G(m_k) + G(m_k-h)] / h with
+    G(x) = (x-mu) Phi(z) + sd phi(z); smooth in mu and sd, tends to linear interpolation as sd -> 0.
+    Weights sum to the probability mass inside the grid (mass off the grid is lost -- e.g. stars whose
+    envelope is gone before ignition)."""
+    mu = np.atleast_1d(np.asarray(mu, float))[:, None]
+    sd = np.maximum(np.atleast_1d(np.asarray(sd, float))[:, None], 1e-3 * h)
+    g = grid[None, :]
+    w = (_g(g + h, mu, sd) - 2.0 * _g(g, mu, sd) + _g(g - h, mu, sd)) / h
+    return np.clip(w, 0.0, None)
+
+
+# --------------------------------------------------------------------------- surrogate
+@dataclass
+class HBSurrogate:
+    """Basis images of one population on the intrinsic plane (see the module docstring).
+
+    ``hb_images[j]`` (K, n_mag, n_col) float32 for helium node ``delta_y_nodes[j]``; ``rgb_images[j]``
+    (n_mag, n_col).  Images are star densities per unit birth rate (Myr mag^-2).
+    """
+
+    bands: tuple
+    col_edges: np.ndarray
+    mag_edges: np.ndarray
+    mass_grid: np.ndarray
+    mass_step: float
+    delta_y_nodes: np.ndarray
+    hb_images: list
+    rgb_images: list
+    age_grid: np.ndarray
+    tip_mass: np.ndarray        # (n_dy, n_age) tip mass at each age
+    core_mass: np.ndarray       # (n_dy,)
+    mh: float
+    helium_excess: np.ndarray   # (n_dy,)
+    x_env: np.ndarray
+    teff_ref_k: float
+    hb_nodes: dict              # intrinsic positions of HB nodes (for the default region / plots)
+
+    @property
+    def shape(self):
+        return len(self.mag_edges) - 1, len(self.col_edges) - 1
+
+    @property
+    def dc(self):
+        return float(self.col_edges[1] - self.col_edges[0])
+
+    @property
+    def dm(self):
+        return float(self.mag_edges[1] - self.mag_edges[0])
+
+    def tip_mass_at(self, age_gyr, j=0):
+        return np.interp(age_gyr, self.age_grid, self.tip_mass[j])
+
+    def blocks(self, mass_loss, mass_loss_sd, age_gyr, helium_fraction=None, delta_y=None):
+        """Weights of the basis images: list of (helium node j, first node a, weights (n, b-a), rgb amp (n,))."""
+        mu = np.atleast_1d(np.asarray(mass_loss, float))
+        n = mu.size
+        sd = np.broadcast_to(np.asarray(mass_loss_sd, float), (n,))
+        age = np.broadcast_to(np.asarray(age_gyr, float), (n,))
+        parts = [(0, np.ones(n))]
+        if helium_fraction is not None and len(self.delta_y_nodes) > 1:
+            fhe = np.broadcast_to(np.asarray(helium_fraction, float), (n,))
+            dy = np.broadcast_to(np.asarray(delta_y, float), (n,))
+            nodes = self.delta_y_nodes
+            u = np.clip(np.interp(dy, nodes, np.arange(len(nodes))), 0, len(nodes) - 1 - 1e-12)
+            j0 = np.floor(u).astype(int)
+            t = u - j0
+            parts = [(0, 1.0 - fhe)]
+            for j in range(len(nodes)):
+                a = np.where(j0 == j, 1.0 - t, 0.0) + np.where(j0 + 1 == j, t, 0.0)
+                parts.append((j, fhe * a))
+        out = []
+        for j, amp in parts:
+            if not np.any(amp > 0):
+                continue
+            m_hb = self.tip_mass_at(age, j) - mu
+            w = hat_gaussian_weights(self.mass_grid, self.mass_step, m_hb, sd) * amp[:, None]
+            keep = np.flatnonzero(w.max(axis=0) > 1e-9 * max(w.max(), 1e-300))
+            if keep.size:  # a contiguous slice of nodes: a view of the basis, no copy
+                a, b = int(keep[0]), int(keep[-1]) + 1
+                out.append((j, a, w[:, a:b], amp))
+            else:
+                out.append((j, 0, w[:, :0], amp))
+        return out
+
+    def images(self, mass_loss, mass_loss_sd, age_gyr, helium_fraction=None, delta_y=None, blocks=None):
+        """Model images (n, n_mag, n_col) for parameter arrays of length n (vectorised over walkers)."""
+        if blocks is None:
+            blocks = self.blocks(mass_loss, mass_loss_sd, age_gyr, helium_fraction, delta_y)
+        n = blocks[0][2].shape[0]
+        nm, nc = self.shape
+        out = np.zeros((n, nm * nc), np.float32)
+        for j, a, w, amp in blocks:
+            if w.shape[1]:
+                out += np.ascontiguousarray(w, np.float32) @ self.hb_images[j][a:a + w.shape[1]]
+            out += amp[:, None].astype(np.float32) * self.rgb_images[j][None, :]
+        return out.reshape(n, nm, nc)
+
+
+def _intrinsic_nodes(sub_pop, sub, masses, bands, n_tau, n_agb):
+    """HB + early-AGB nodes (colour, mag, weight, mass index) for HB masses ``masses`` of one sub-population."""
+    mc = sub.core_mass_msun
+    ok = masses >= mc + MENV_MIN_MSUN
+    idx = np.flatnonzero(ok)
+    if idx.size == 0:
+        return None
+    m = masses[idx]
+    z = zahb_state(m, np.full(m.size, mc), sub.mh, sub.helium_excess)
+    t_hb = hbe.hb_lifetime_myr(np.full(m.size, mc), z.logteff, sub.helium_excess)
+    t_agb = hbe.agb_lifetime_myr(np.full(m.size, mc), z.logteff, sub.helium_excess)
+    tau = (np.arange(n_tau) + 0.5) / n_tau
+    s = (np.arange(n_agb) + 0.5) / n_agb
+    l0 = np.repeat(z.logl, n_tau)
+    t0 = np.repeat(z.logteff, n_tau)
+    logl_h, logt_h = hbe.hb_track(l0, t0, np.tile(tau, m.size))
+    # the same physics as Population.model_stars and the mock sampler: the redward end of the HB never
+    # crosses the RGB, and the early AGB is placed against the RGB of the population's tip mass
+    logt_h = gb.clip_blue_of_rgb(logl_h, logt_h, sub.mh, sub.tip_mass_msun, sub.helium_excess)
+    l0a = np.repeat(z.logl, n_agb)
+    t0a = np.repeat(z.logteff, n_agb)
+    ma = np.repeat(m, n_agb)
+    logl_a, logt_a = hbe.agb_track(l0a, t0a, np.tile(s, m.size), ma, sub.mh, sub.helium_excess,
+                                   sub.tip_mass_msun)
+    mass = np.concatenate([np.repeat(m, n_tau), ma])
+    logl = np.concatenate([logl_h, logl_a])
+    logt = np.concatenate([logt_h, logt_a])
+    w = np.concatenate([np.repeat(t_hb / n_tau, n_tau), np.repeat(t_agb / n_agb, n_agb)])
+    kidx = np.concatenate([np.repeat(idx, n_tau), np.repeat(idx, n_agb)])
+    is_hb = np.concatenate([np.ones(m.size * n_tau, bool), np.zeros(m.size * n_agb, bool)])
+    n = mass.size
+    st = StarSet(np.where(is_hb, "hb", "agb"), mass, np.full(n, mc), logl, logt,
+                 np.full(n, sub.composition.feh), w, np.zeros(n, int))
+    mags = st.absolute_magnitudes(bands)
+    keep = w > 0
+    return (mags[bands[0]][keep] - mags[bands[1]][keep], mags[bands[0]][keep], w[keep], kidx[keep],
+            10.0 ** logt[keep], is_hb[keep])
+
+
+def _rgb_nodes(pop, bands, n_rgb):
+    st = pop.model_stars(phases=("rgb",), n_rgb=n_rgb)
+    if len(st) == 0:
+        return np.zeros(0), np.zeros(0), np.zeros(0)
+    mags = st.absolute_magnitudes(bands)
+    return mags[bands[0]] - mags[bands[1]], mags[bands[0]], st.weight
+
+
+def _deposit(col, mag, w, kidx, n_img, col_edges, mag_edges, err_model, bands, shift_c, shift_m, floor):
+    """Sum correlated Gaussian kernels (photometric errors) of nodes into ``n_img`` images."""
+    nm, nc = len(mag_edges) - 1, len(col_edges) - 1
+    dc, dm = col_edges[1] - col_edges[0], mag_edges[1] - mag_edges[0]
+    out = np.zeros(n_img * nm * nc)
+    if col.size == 0:
+        return out.reshape(n_img, nm * nc)
+    m1 = mag + shift_m
+    m2 = m1 - (col + shift_c)
+    s1 = err_model(bands[0], m1)
+    s2 = err_model(bands[1], m2)
+    sm2 = s1 ** 2 + floor ** 2
+    sc2 = s1 ** 2 + s2 ** 2 + floor ** 2
+    cov = s1 ** 2
+    hw_c = int(np.ceil(4.0 * np.sqrt(sc2.max()) / dc)) + 1
+    hw_m = int(np.ceil(4.0 * np.sqrt(sm2.max()) / dm)) + 1
+    hw_c, hw_m = min(hw_c, 40), min(hw_m, 40)
+    oc = np.arange(-hw_c, hw_c + 1)
+    om = np.arange(-hw_m, hw_m + 1)
+    # nodes far outside the image cannot contribute
+    inside = ((col > col_edges[0] - (hw_c + 1) * dc) & (col < col_edges[-1] + (hw_c + 1) * dc)
+              & (mag > mag_edges[0] - (hw_m + 1) * dm) & (mag < mag_edges[-1] + (hw_m + 1) * dm))
+    col, mag, w, kidx, sm2, sc2, cov = (a[inside] for a in (col, mag, w, kidx, sm2, sc2, cov))
+    ic = np.floor((col - col_edges[0]) / dc).astype(int)
+    im = np.floor((mag - mag_edges[0]) / dm).astype(int)
+    chunk = max(1, int(4e6 // (oc.size * om.size)))
+    for a in range(0, col.size, chunk):  # chunks of nodes (memory), vectorised inside
+        sl = slice(a, a + chunk)
+        jc = ic[sl, None, None] + oc[None, None, :]
+        jm = im[sl, None, None] + om[None, :, None]
+        x = col_edges[0] + (jc + 0.5) * dc - col[sl, None, None]
+        y = mag_edges[0] + (jm + 0.5) * dm - mag[sl, None, None]
+        det = sc2[sl] * sm2[sl] - cov[sl] ** 2
+        q = (sm2[sl, None, None] * x * x - 2 * cov[sl, None, None] * x * y + sc2[sl, None, None] * y * y) \
+            / det[:, None, None]
+        k = np.exp(-0.5 * q)
+        k /= k.sum(axis=(1, 2), keepdims=True) * (dc * dm)
+        k *= w[sl, None, None]
+        ok = (jc >= 0) & (jc < nc) & (jm >= 0) & (jm < nm)
+        flat = (kidx[sl, None, None] * (nm * nc) + jm * nc + jc)
+        out += np.bincount(flat[ok], weights=k[ok], minlength=out.size)
+    return out.reshape(n_img, nm * nc)
+
+
+_CACHE: dict = {}
+
+
+def pixel_for_errors(colour_err) -> float:
+    """Basis-image pixel (mag) matched to the sharpest data: half the 10th-percentile colour error,
+    within [pixel_min_mag, pixel_mag] of ``tables/fit_settings.csv``.  A surrogate coarser than the
+    photometric errors smooths away structure the data resolve (a red clump measured to 0.01 mag) and
+    biases the parameters that move that structure."""
+    c = fit_constants()
+    e = np.asarray(colour_err, float)
+    e = e[np.isfinite(e) & (e > 0)]
+    if e.size == 0:
+        return float(c["pixel_mag"])
+    return float(np.clip(0.5 * np.percentile(e, 10), c["pixel_min_mag"], c["pixel_mag"]))
+
+
+def build_surrogate(*, feh, alpha_fe, age_gyr, helium, bands, err_model, col_range, mag_range,
+                    shift_c, shift_m, age_sd_gyr=0.0, delta_y_max=0.0, pixel=None, teff_ref_k=None,
+                    cache=True) -> HBSurrogate:
+    """Build (or fetch from the in-process cache) the basis images of a population.
+
+    ``col_range``/``mag_range`` are intrinsic (absolute) ranges the images cover; ``shift_c``/``shift_m``
+    the nominal observed-minus-intrinsic shifts used to look up the photometric errors.
+    """
+    c = fit_constants()
+    bands = tuple(bands)
+    key = (float(feh), float(alpha_fe), float(age_gyr), helium, bands, err_model.key(),
+           tuple(np.round(col_range, 4)), tuple(np.round(mag_range, 4)), round(shift_c, 4), round(shift_m, 4),
+           round(float(age_sd_gyr), 4), round(float(delta_y_max), 4), pixel)
+    if cache and key in _CACHE:
+        return _CACHE[key]
+    if pixel is None:
+        pixel = c["pixel_mag"]
+    nc = max(8, int(np.ceil((col_range[1] - col_range[0]) / pixel)))
+    nm = max(8, int(np.ceil((mag_range[1] - mag_range[0]) / pixel)))
+    scale = max(1.0, np.sqrt(nc * nm / c["max_pixels"]))
+    nc, nm = int(np.ceil(nc / scale)), int(np.ceil(nm / scale))
+    col_edges = np.linspace(col_range[0], col_range[1], nc + 1)
+    mag_edges = np.linspace(mag_range[0], mag_range[1], nm + 1)
+    # smoothing floor tied to the pixel actually used: the kernels stay resolved by the pixels, and the
+    # model is never smoother than the image resolution requires
+    floor = c["smooth_floor_per_pixel"] * max(col_edges[1] - col_edges[0], mag_edges[1] - mag_edges[0])
+    # helium nodes
+    if delta_y_max > 0:
+        n_dy = int(np.ceil(delta_y_max / c["delta_y_step"])) + 1
+        dys = np.linspace(0.0, delta_y_max, n_dy)
+    else:
+        dys = np.array([0.0])
+    pops = [Population(feh, age_gyr, alpha_fe=alpha_fe, helium=helium,
+                       helium_enriched_fraction=1.0 if dy > 0 else 0.0, helium_delta_y=float(dy)) for dy in dys]
+    subs = [p.subpopulations[0] for p in pops]
+    lo_age, hi_age = gb.AGE_RANGE_GYR
+    if age_sd_gyr > 0:
+        a0 = max(lo_age, age_gyr - 5 * age_sd_gyr)
+        a1 = min(hi_age, age_gyr + 5 * age_sd_gyr)
+        age_grid = np.linspace(a0, a1, 41)
+    else:
+        age_grid = np.array([age_gyr - 1e-6, age_gyr + 1e-6])
+    tips = []
+    for sub, p in zip(subs, pops):
+        y_arg = sub.composition.y if (sub.helium_excess != 0 or helium is not None
+                                       or p.helium_delta_y > 0) else None
+        if p.helium_delta_y == 0 and helium is None:
+            y_arg = None
+        tips.append(np.asarray(gb.tip_mass_msun(np.clip(age_grid, lo_age, hi_age), sub.mh, y_arg), float))
+    tips = np.array(tips)
+    h = c["mass_step_msun"]
+    m_lo = min(s.core_mass_msun for s in subs) + MENV_MIN_MSUN
+    m_hi = float(tips.max()) + 2 * h
+    mass_grid = np.arange(m_lo, m_hi + h, h)
+    hb_images, rgb_images = [], []
+    teffs, nodes_c, nodes_m, nodes_w = [], [], [], []
+    for j, (sub, p) in enumerate(zip(subs, pops)):
+        res = _intrinsic_nodes(p, sub, mass_grid, bands, int(c["n_tau"]), int(c["n_agb"]))
+        if res is None:
+            img = np.zeros((mass_grid.size, nm * nc))
+        else:
+            col, mag, w, kidx, teff, is_hb = res
+            if j == 0:
+                teffs.append(teff[is_hb])
+                nodes_c.append(col[is_hb]); nodes_m.append(mag[is_hb]); nodes_w.append(kidx[is_hb])
+            img = _deposit(col, mag, w, kidx, mass_grid.size, col_edges, mag_edges, err_model, bands,
+                           shift_c, shift_m, floor)
+        hb_images.append(np.ascontiguousarray(img, np.float32))
+        rc, rm, rw = _rgb_nodes(p, bands, int(c["n_rgb"]))
+        rimg = _deposit(rc, rm, rw, np.zeros(rc.size, int), 1, col_edges, mag_edges, err_model, bands,
+                        shift_c, shift_m, floor)[0]
+        rgb_images.append(rimg.astype(np.float32))
+    if teff_ref_k is None:
+        teff_ref_k = float(np.median(np.concatenate(teffs))) if teffs else 5000.0
+    hb_nodes = {"colour": np.concatenate(nodes_c) if nodes_c else np.zeros(0),
+                "mag": np.concatenate(nodes_m) if nodes_m else np.zeros(0),
+                "mass_index": np.concatenate(nodes_w) if nodes_w else np.zeros(0, int)}
+    s = HBSurrogate(bands, col_edges, mag_edges, mass_grid, h, dys, hb_images, rgb_images, age_grid, tips,
+                    np.array([sb.core_mass_msun for sb in subs]), subs[0].mh,
+                    np.array([sb.helium_excess for sb in subs]), np.array([sb.composition.x for sb in subs]),
+                    teff_ref_k, hb_nodes)
+    if cache:
+        if len(_CACHE) > 8:
+            _CACHE.pop(next(iter(_CACHE)))
+        _CACHE[key] = s
+    return s
+
+
+def population_extent(*, feh, alpha_fe, age_gyr, helium, bands):
+    """Intrinsic (colour, mag) extent of the HB + early AGB over all HB masses, and the RGB-base magnitude."""
+    pop = Population(feh, age_gyr, alpha_fe=alpha_fe, helium=helium)
+    sub = pop.subpopulations[0]
+    masses = np.linspace(sub.core_mass_msun + 0.01, sub.tip_mass_msun, 60)
+    col, mag, w, kidx, teff, is_hb = _intrinsic_nodes(pop, sub, masses, bands, 24, 12)
+    # the RGB base modelled (log L = logl_rgb_min) sets the faintest usable magnitude
+    rc, rm, rw = _rgb_nodes(pop, bands, 512)
+    return col, mag, float(np.max(rm)) if rm.size else np.inf
+
+
+# --------------------------------------------------------------------------- likelihood
+class CMDLikelihood:
+    """Unbinned mixture log-likelihood of stars in a rectangular CMD region (see the module docstring).
+
+    ``colour``/``mag``: observed values of the stars inside ``region`` = (cmin, cmax, mbright, mfaint).
+    ``completeness``: callable of the observed first-band magnitude (or None)."""
+
+    def __init__(self, surrogate: HBSurrogate, colour, mag, region, completeness=None, *, shift_lo, shift_hi,
+                 n_shift=41, reddening_vector=None, spread_max=0.0):
+        self.s = surrogate
+        self.colour = np.asarray(colour, float)
+        self.mag = np.asarray(mag, float)
+        self.region = tuple(float(v) for v in region)
+        cmin, cmax, mb, mf = self.region
+        self.area = (cmax - cmin) * (mf - mb)
+        self.completeness = completeness
+        self.c_star = np.ones(self.colour.size) if completeness is None else np.asarray(completeness(self.mag))
+        self.n = self.colour.size
+        mcen = 0.5 * (surrogate.mag_edges[1:] + surrogate.mag_edges[:-1])
+        self._mcen = mcen
+        self.shift_lo = np.asarray(shift_lo, float)
+        self.shift_hi = np.asarray(shift_hi, float)
+        self._setup_blur(reddening_vector, float(spread_max))
+        if self._blur_q is not None:
+            # the normalisation of a convolved image is the Gauss-Hermite average of the plain one over shifts
+            # along the reddening vector: the tables reach that far, at the same shift spacing
+            ext = _GH_T.max() * self.spread_max * np.abs(np.array(self.reddening_vector))
+            width = self.shift_hi - self.shift_lo
+            n_shift = int(min(3 * n_shift, np.ceil(n_shift * np.max((width + 2 * ext) / width))))
+            self.shift_lo, self.shift_hi = self.shift_lo - ext, self.shift_hi + ext
+        self._build_norm_tables(n_shift)
+
+    #: Fractions of the largest spread for which zero-padded transform sizes are prepared: a batch of
+    #: walkers uses the smallest that holds its largest spread (smaller transforms when spreads are small).
+    _BLUR_LEVELS = (0.25, 0.5, 1.0)
+
+    def _setup_blur(self, vec, spread_max):
+        """Fourier multipliers of the differential-reddening convolution (see the module docstring):
+        per level L of :data:`_BLUR_LEVELS`, ``(q, shape)`` such that the multiplier is exp(-sd^2 q) on an
+        image zero-padded by 4.5 L sd_max |v| pixels (no wrap-around for sd <= L sd_max)."""
+        self._blur_q = None
+        self.spread_max = spread_max
+        self.reddening_vector = None
+        if vec is None or not spread_max > 0:
+            return
+        s = self.s
+        nm, nc = s.shape
+        um, uc = float(vec[1]) / s.dm, float(vec[0]) / s.dc   # pixels per unit E(B-V): rows (mag), columns
+        self._blur_q = {}
+        for level in self._BLUR_LEVELS:
+            pm = int(np.ceil(4.5 * level * spread_max * abs(um))) + 2
+            pc = int(np.ceil(4.5 * level * spread_max * abs(uc))) + 2
+            shape = (sfft.next_fast_len(nm + pm, real=True), sfft.next_fast_len(nc + pc, real=True))
+            fm = np.fft.fftfreq(shape[0])[:, None]
+            fc = np.fft.rfftfreq(shape[1])[None, :]
+            self._blur_q[level] = ((2.0 * np.pi ** 2 * (um * fm + uc * fc) ** 2).astype(np.float32), shape)
+        self.reddening_vector = (float(vec[0]), float(vec[1]))
+
+    def blur(self, img, spread):
+        """Images (n, n_mag, n_col) convolved along the reddening vector with Gaussians of sd ``spread``
+        (E(B-V), per walker).  Values below zero (float rounding of the transform) are set to zero."""
+        if self._blur_q is None:
+            return img
+        n, nm, nc = img.shape
+        sd = np.broadcast_to(np.abs(np.asarray(spread, float)), (n,))
+        sd2 = (sd ** 2).astype(np.float32)
+        out = np.empty(img.shape, np.float32)
+        for a in range(0, n, 16):  # chunks of walkers (memory)
+            top = float(sd[a:a + 16].max()) / self.spread_max
+            level = next((lv for lv in self._BLUR_LEVELS if top <= lv), self._BLUR_LEVELS[-1])
+            q, shape = self._blur_q[level]
+            f = sfft.rfft2(img[a:a + 16], s=shape, axes=(1, 2), workers=1)
+            f *= np.exp(-sd2[a:a + 16, None, None] * q)
+            out[a:a + 16] = sfft.irfft2(f, s=shape, axes=(1, 2), workers=1)[:, :nm, :nc]
+        return np.maximum(out, 0.0, out=out)
+
+    def _model(self, p, blocks, sc, sm):
+        """Model images of the walkers and their normalisations over the region."""
+        img = self.s.images(None, None, None, blocks=blocks)
+        if self._blur_q is not None and p.get("ebv_spread") is not None:
+            sd = np.broadcast_to(np.asarray(p["ebv_spread"], float), sc.shape)
+            vc, vm = self.reddening_vector
+            z = sum(w * self._norm_from_tables(blocks, sc + t * sd * vc, sm + t * sd * vm)
+                    for t, w in zip(_GH_T, _GH_W))
+            return self.blur(img, sd), z
+        return img, self._norm_from_tables(blocks, sc, sm)
+
+    def _build_norm_tables(self, n_shift):
+        """Region integral of every basis image on a grid of shifts (bilinear in the shift afterwards)."""
+        s = self.s
+        self._gc = np.linspace(self.shift_lo[0], self.shift_hi[0], n_shift)
+        self._gm = np.linspace(self.shift_lo[1], self.shift_hi[1], n_shift)
+        gc, gm = self._gc, self._gm
+        nm, nc = s.shape
+        tabs_hb, tabs_rgb = [], []
+        for j in range(len(s.hb_images)):
+            imgs = np.concatenate([s.hb_images[j], s.rgb_images[j][None]], axis=0).reshape(-1, nm, nc)
+            z = np.empty((imgs.shape[0], gc.size, gm.size))
+            for a in range(0, imgs.shape[0], 64):  # chunks of basis images (memory)
+                z[a:a + 64] = self._normalisation(imgs[a:a + 64], gc, gm, grid=True)
+            tabs_hb.append(z[:-1])
+            tabs_rgb.append(z[-1])
+        self._ztab_hb, self._ztab_rgb = tabs_hb, tabs_rgb
+
+    def _norm_from_tables(self, blocks, sc, sm):
+        u = np.clip((sc - self._gc[0]) / (self._gc[1] - self._gc[0]), 0, self._gc.size - 1 - 1e-9)
+        v = np.clip((sm - self._gm[0]) / (self._gm[1] - self._gm[0]), 0, self._gm.size - 1 - 1e-9)
+        i, k = u.astype(int), v.astype(int)
+        tu, tv = u - i, v - k
+        z = np.zeros(sc.size)
+        for j, a, w, amp in blocks:
+            def bil(t):  # t: (..., n_c, n_m) -> values per walker
+                return ((t[..., i, k] * (1 - tu) + t[..., i + 1, k] * tu) * (1 - tv)
+                        + (t[..., i, k + 1] * (1 - tu) + t[..., i + 1, k + 1] * tu) * tv)
+            if w.shape[1]:
+                zt = bil(self._ztab_hb[j][a:a + w.shape[1]])  # (b-a, n)
+                z += np.einsum("nk,kn->n", w, zt)
+            z += amp * bil(self._ztab_rgb[j])
+        return z
+
+    def _normalisation(self, img, sc, sm, grid=False):
+        """Integral of c(m) rho(x - s) over the region (summed-area table; piecewise linear in s).
+
+        Per walker (``sc``, ``sm`` of length n), or with ``grid=True`` for every image on the grid
+        ``sc`` x ``sm`` -> (n, len(sc), len(sm))."""
+        s = self.s
+        n, nm, nc = img.shape
+        if grid:
+            cs = np.concatenate([np.zeros((n, nm, 1)), np.cumsum(img, axis=2, dtype=np.float64)], axis=2) * s.dc
+            cmin, cmax, mb, mf = self.region
+            def at_g(xc):  # (n, nm, len(xc))
+                u = np.clip((xc - s.col_edges[0]) / s.dc, 0, nc - 1e-9)
+                j = np.floor(u).astype(int)
+                t = u - j
+                return cs[:, :, j] * (1 - t) + cs[:, :, j + 1] * t
+            rows = at_g(cmax - sc) - at_g(cmin - sc)  # (n, nm, Gc)
+            lo = (mb - sm)[None, :]
+            hi = (mf - sm)[None, :]
+            e0, e1 = s.mag_edges[:-1, None], s.mag_edges[1:, None]
+            overlap = np.clip(np.minimum(e1, hi) - np.maximum(e0, lo), 0, None)  # (nm, Gm)
+            if self.completeness is not None:
+                overlap = overlap * np.asarray(self.completeness(self._mcen[:, None] + sm[None, :]))
+            return np.einsum("nrc,rm->ncm", rows, overlap)
+        cmin, cmax, mb, mf = self.region
+        cs = np.concatenate([np.zeros((n, nm, 1)), np.cumsum(img, axis=2, dtype=np.float64)], axis=2) * s.dc
+        def at(xc):  # cumulative along colour at intrinsic colours xc (n,)
+            u = np.clip((xc - s.col_edges[0]) / s.dc, 0, nc - 1e-9)
+            j = np.floor(u).astype(int)
+            t = (u - j)[:, None]
+            r = np.arange(n)
+            return cs[r, :, j] * (1 - t) + cs[r, :, j + 1] * t
+        rows = at(cmax - sc) - at(cmin - sc)  # (n, nm)
+        lo = (mb - sm)[:, None]
+        hi = (mf - sm)[:, None]
+        e0, e1 = s.mag_edges[None, :-1], s.mag_edges[None, 1:]
+        overlap = np.clip(np.minimum(e1, hi) - np.maximum(e0, lo), 0, None)
+        if self.completeness is not None:
+            cw = np.asarray(self.completeness((self._mcen[None, :] + sm[:, None]).ravel())).reshape(n, nm)
+            overlap = overlap * cw
+        return np.sum(rows * overlap, axis=1)
+
+    def density_at(self, img, sc, sm, colour=None, mag=None):
+        """Model density (normalised image values) at observed points for each walker: (n, n_star)."""
+        s = self.s
+        colour = self.colour if colour is None else colour
+        mag = self.mag if mag is None else mag
+        n, nm, nc = img.shape
+        u = (colour[None, :] - sc[:, None] - s.col_edges[0]) / s.dc - 0.5
+        v = (mag[None, :] - sm[:, None] - s.mag_edges[0]) / s.dm - 0.5
+        inside = (u > -0.5) & (u < nc - 0.5) & (v > -0.5) & (v < nm - 0.5)
+        u = np.clip(u, 0, nc - 1 - 1e-9)
+        v = np.clip(v, 0, nm - 1 - 1e-9)
+        j = u.astype(int)
+        i = v.astype(int)
+        tu = u - j
+        tv = v - i
+        flat = img.reshape(n, -1)
+        base = (np.arange(n)[:, None] * (nm * nc)) + i * nc + j
+        f = flat.ravel()
+        val = ((f[base] * (1 - tu) + f[base + 1] * tu) * (1 - tv)
+               + (f[base + nc] * (1 - tu) + f[base + nc + 1] * tu) * tv)
+        return np.where(inside, val, 0.0)
+
+    def __call__(self, p: dict):
+        """Log-likelihood for parameter arrays in ``p`` (keys: mass_loss, mass_loss_sd, age, shift_colour,
+        shift_mag, field_fraction, optional helium_fraction, delta_y, ebv_spread); returns shape (n,)."""
+        mu = np.atleast_1d(p["mass_loss"])
+        n = mu.size
+        blocks = self.s.blocks(mu, p["mass_loss_sd"], p["age"], p.get("helium_fraction"), p.get("delta_y"))
+        sc = np.broadcast_to(np.asarray(p["shift_colour"], float), (n,))
+        sm = np.broadcast_to(np.asarray(p["shift_mag"], float), (n,))
+        f = np.broadcast_to(np.asarray(p["field_fraction"], float), (n,))
+        img, z = self._model(p, blocks, sc, sm)
+        rho = self.density_at(img, sc, sm)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            pm = (1 - f)[:, None] * self.c_star[None, :] * rho / z[:, None] + (f / self.area)[:, None]
+            ll = np.sum(np.log(np.maximum(pm, 1e-300)), axis=1)
+        return np.where(z > 0, ll, -np.inf)
+
+    def model_hess(self, p: dict, col_edges, mag_edges):
+        """Expected counts of the fitted stars in observed-plane bins (for plots / Poisson deviance)."""
+        cc = 0.5 * (col_edges[1:] + col_edges[:-1])
+        mc = 0.5 * (mag_edges[1:] + mag_edges[:-1])
+        C, M = np.meshgrid(cc, mc)
+        pp = {k: np.atleast_1d(v)[:1] for k, v in p.items() if v is not None}
+        img = self.s.images(pp["mass_loss"], pp["mass_loss_sd"], pp["age"], pp.get("helium_fraction"),
+                            pp.get("delta_y"))
+        if pp.get("ebv_spread") is not None:
+            img = self.blur(img, pp["ebv_spread"])
+        sc, sm, f = pp["shift_colour"], pp["shift_mag"], pp["field_fraction"]
+        z = self._normalisation(img, sc, sm)
+        rho = self.density_at(img, sc, sm, C.ravel(), M.ravel())[0].reshape(C.shape)
+        comp = 1.0 if self.completeness is None else np.asarray(self.completeness(M))
+        dens = (1 - f[0]) * comp * rho / z[0] + f[0] / self.area
+        area = np.outer(np.diff(mag_edges), np.diff(col_edges))
+        return self.n * dens * area
+
+
+def hess_poisson_deviance(observed, model):
+    """Poisson likelihood-ratio statistic of a Hess diagram (Dolphin 2002, MNRAS 332, 91, eq. 10):
+    2 sum(m_i - n_i + n_i ln(n_i/m_i)); ~ chi^2 with about the number of occupied bins."""
+    n = np.asarray(observed, float)
+    m = np.maximum(np.asarray(model, float), 1e-12)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.where(n > 0, n * np.log(n / m), 0.0)
+    return float(2.0 * np.sum(m - n + t))

@@ -1,0 +1,1 @@
+"""Layer 8 -- figures and reports of results."""
