@@ -74,7 +74,7 @@ def _commands():
         "fit": HB + ["fit", "gc.ecsv", "--bands", "V,I", "--feh", "-1.6", "--alpha-fe", "0.3", "--age", "12.5",
                      "--distance-modulus", "15.0", "--dm-sd", "0.05", "--ebv", "0.05", "--ebv-sd", "0.01",
                      "--no-compare"],
-        "distance": HB + ["distance", "field0.ecsv", "--band", "I", "--color", "V-I", "--reddening-from-color",
+        "distance": HB + ["distance", "field0.ecsv", "--band", "I", "--colour", "V-I", "--reddening-from-colour",
                           "--feh", "-0.3", "--feh-sd", "0.1", "--age", "3", "--age-sd", "2"],
         "batch": HB + ["batch", "fields.csv", "--task", "distance", "--out", "fields_out", "--jobs", "2",
                        "--force"],

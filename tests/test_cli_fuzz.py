@@ -9,7 +9,7 @@ from hbmodel.cli.main import main
 
 FLAGS = ["--feh", "--age", "--eta", "--eta-sd", "--mass-loss", "--helium", "--alpha-fe", "--bands", "--n-hb",
          "--out", "--band", "--ebv", "--json", "--config", "--grid", "--law", "--seed", "--window", "--force",
-         "--color", "--age-range", "--hb-masses"]
+         "--colour", "--age-range", "--hb-masses"]
 VALUES = ["-1.5", "12", "0.4", "nan", "inf", "-3", "5", "abc", "V,I", "V,Q", "", "0", "1e9", "feh=1:0:0.1",
           "reimers", "x.toml", "I:1:2", "-0", "J-Ks", "k-j", "K", "1:10", "V:20:10"]
 tokens = st.sampled_from(FLAGS + VALUES)

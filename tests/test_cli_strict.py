@@ -29,7 +29,7 @@ def _one_line_error(capsys, argv, *needles):
      "--out", "m.ecsv"],
     ["fit", "cat.ecsv", "--bands", "V,ACS_F625W", *POP],
     ["distance", "cat.ecsv", "--band", "ACS_F625W", "--feh", "0", "--age", "4"],
-    ["distance", "cat.ecsv", "--band", "Ks", "--color", "J-ACS_F625W", "--feh", "0", "--age", "4"],
+    ["distance", "cat.ecsv", "--band", "Ks", "--colour", "J-ACS_F625W", "--feh", "0", "--age", "4"],
 ])
 def test_unknown_band_is_an_error_in_every_command_naming_the_nearest(argv, capsys, tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
@@ -80,12 +80,12 @@ def test_catalogue_band_columns_are_found_under_an_alias(tmp_path):
         read_catalog(tmp_path / "two.ecsv", required=("Ks",))
 
 
-# --------------------------------------------------------------------------- --color
+# --------------------------------------------------------------------------- --colour
 def test_color_option_sets_the_field_box_colour_independently_of_band_order(tmp_path):
-    # issue 16: colours were always FIRST-SECOND; --bands Ks,J --color J-Ks puts the box in J-Ks
+    # issue 16: colours were always FIRST-SECOND; --bands Ks,J --colour J-Ks puts the box in J-Ks
     common = [*POP, "--eta", "0.45", "--n-hb", "30", "--bands", "Ks,J", "--distance-modulus", "15",
               "--depth", "Ks=20,J=21", "--field-n", "200", "--field-box", "0.2,0.8,12,14", "--seed", "1"]
-    assert main(["mock", *common, "--color", "j-ks", "--out", str(tmp_path / "a.ecsv")]) == 0
+    assert main(["mock", *common, "--colour", "j-ks", "--out", str(tmp_path / "a.ecsv")]) == 0
     assert main(["mock", *common, "--out", str(tmp_path / "b.ecsv")]) == 0
     for name, sign in (("a.ecsv", 1.0), ("b.ecsv", -1.0)):
         f = Table.read(tmp_path / name)
@@ -96,11 +96,37 @@ def test_color_option_sets_the_field_box_colour_independently_of_band_order(tmp_
 
 
 def test_color_must_use_the_given_bands(tmp_path, capsys):
-    _one_line_error(capsys, ["mock", *POP, "--eta", "0.45", "--n-hb", "20", "--bands", "V,I", "--color", "J-Ks",
-                             "--out", str(tmp_path / "m.ecsv")], "--color J-Ks", "not among the bands V,I")
-    _one_line_error(capsys, ["fit", "x.ecsv", "--bands", "Ks,J", "--color", "V-I", *POP], "--color V-I")
-    _one_line_error(capsys, ["distance", "x.ecsv", "--band", "Ks", "--color", "J+Ks", "--feh", "0", "--age", "4"],
-                    "--color must be two bands joined by '-'")
+    _one_line_error(capsys, ["mock", *POP, "--eta", "0.45", "--n-hb", "20", "--bands", "V,I", "--colour", "J-Ks",
+                             "--out", str(tmp_path / "m.ecsv")], "--colour J-Ks", "not among the bands V,I")
+    _one_line_error(capsys, ["fit", "x.ecsv", "--bands", "Ks,J", "--colour", "V-I", *POP], "--colour V-I")
+    _one_line_error(capsys, ["distance", "x.ecsv", "--band", "Ks", "--colour", "J+Ks", "--feh", "0", "--age", "4"],
+                    "--colour must be two bands joined by '-'")
+
+
+def test_former_option_spellings_work_for_one_release_with_a_warning(tmp_path, capsys):
+    # issue 14: one spelling ('colour') everywhere and '--mag-range' for the distance window; the former
+    # spellings (--color, --reddening-from-color, distance --region) still work, warn once on stderr and
+    # give the same result -- on the command line and as config-file keys
+    common = [*POP, "--eta", "0.45", "--n-hb", "30", "--bands", "Ks,J", "--depth", "Ks=20,J=21",
+              "--field-n", "50", "--field-box", "0.2,0.8,12,14", "--seed", "3"]
+    assert main(["mock", *common, "--colour", "J-Ks", "--out", str(tmp_path / "new.ecsv")]) == 0
+    capsys.readouterr()
+    assert main(["mock", *common, "--color", "J-Ks", "--out", str(tmp_path / "old.ecsv")]) == 0
+    err = capsys.readouterr().err
+    assert "--color is deprecated" in err and "use --colour" in err
+    a, b = Table.read(tmp_path / "new.ecsv"), Table.read(tmp_path / "old.ecsv")
+    assert np.array_equal(np.asarray(a["J"]), np.asarray(b["J"]))
+    cfg = tmp_path / "old.toml"
+    cfg.write_text('color = "J-Ks"\n')
+    assert main(["mock", *common, "--config", str(cfg), "--out", str(tmp_path / "cfg.ecsv")]) == 0
+    assert "'color' is deprecated" in capsys.readouterr().err
+    assert np.array_equal(np.asarray(Table.read(tmp_path / "cfg.ecsv")["J"]), np.asarray(a["J"]))
+    # distance: the former --region and the new --mag-range are the same option (checked before any work)
+    argv = ["distance", str(tmp_path / "new.ecsv"), "--band", "Ks", "--feh", "0", "--age", "4"]
+    _one_line_error(capsys, argv + ["--mag-range", "14,13"], "--mag-range must be MAG_BRIGHT,MAG_FAINT")
+    assert main(argv + ["--region", "14,13"]) == 2
+    err = capsys.readouterr().err.splitlines()
+    assert len(err) == 2 and "--region is deprecated" in err[0] and "--mag-range must be" in err[1]
 
 
 def test_fit_colour_option_is_a_reflection_of_the_colour_axis():

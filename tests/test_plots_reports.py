@@ -349,7 +349,7 @@ def test_distance_report_splits_errors_and_names_every_input(tmp_path, capsys):
     cat = tmp_path / "field.ecsv"
     _catalog("corvid_east.ecsv").write(cat)
     out = tmp_path / "d"
-    assert main(["distance", str(cat), "--band", "Ks", "--color", "J-Ks", "--reddening-from-color",
+    assert main(["distance", str(cat), "--band", "Ks", "--colour", "J-Ks", "--reddening-from-colour",
                  "--feh", "0.0", "--feh-sd", "0.1", "--age", "4", "--age-sd", "1", "--eta", "0.3",
                  "--out", str(out)]) == 0
     text = (out / "report.md").read_text()

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import argparse
+import sys
 import json
 import math
 
@@ -19,6 +20,39 @@ def toml_parser():
         except ImportError:
             raise ValueError("reading TOML needs Python >= 3.11 or the tomli package (pip install tomli)") from None
     return tomllib
+
+
+class RenamedOption(argparse.Action):
+    """An option under its new name (the first option string) that still accepts its former spelling(s)
+    for one release, with a one-line warning on stderr (issue 14: one spelling, 'colour', everywhere).
+
+    ``flag=True`` makes it a switch (``store_true``)."""
+
+    def __init__(self, option_strings, dest, flag=False, **kw):
+        self.flag = flag
+        if flag:
+            kw.update(nargs=0, default=kw.get("default", False))
+        super().__init__(option_strings, dest, **kw)
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        if option_string is not None and option_string != self.option_strings[0]:
+            warn_renamed(option_string, self.option_strings[0])
+        setattr(namespace, self.dest, True if self.flag else values)
+
+
+def warn_renamed(old: str, new: str) -> None:
+    print(f"hbmodel: warning: {old} is deprecated and will be removed in the next release; use {new}",
+          file=sys.stderr)
+
+
+def renamed_config_keys(parser: argparse.ArgumentParser) -> dict:
+    """Former config-file keys (dest form) of the parser's renamed options -> their current dest."""
+    out = {}
+    for a in parser._actions:
+        if isinstance(a, RenamedOption):
+            for s in a.option_strings[1:]:
+                out[s.lstrip("-").replace("-", "_")] = a.dest
+    return out
 
 
 def add_population_arguments(p: argparse.ArgumentParser, *, mass_loss_required=True, age_required=True):
@@ -151,8 +185,8 @@ def canonical_columns(mapping: dict | None) -> dict | None:
     return {canon(k): v for k, v in mapping.items()}
 
 
-def colour_of(text, bands, what="--color"):
-    """``--color A-B`` as canonical bands, which must be among ``bands``; None when not given."""
+def colour_of(text, bands, what="--colour"):
+    """``--colour A-B`` as canonical bands, which must be among ``bands``; None when not given."""
     from hbmodel.photometry.magnitudes import parse_colour
     if not text:
         return None

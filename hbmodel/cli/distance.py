@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from hbmodel.cli.common import canonical_columns, dumps, parse_floats, parse_mapping
+from hbmodel.cli.common import RenamedOption, canonical_columns, dumps, parse_floats, parse_mapping
 
 NAME = "distance"
 HELP = "red-clump distance of a field or cluster, with the population correction"
@@ -11,14 +11,14 @@ DESCRIPTION = """Fit the clump luminosity function of a catalogue and turn its p
 
 examples:
   hbmodel distance field.ecsv --band Ks --feh 0.0 --age 4 --ebv 0.3 --json
-  hbmodel distance field.ecsv --band Ks --color J-Ks --reddening-from-color --feh -0.2 --age-range 1:10
+  hbmodel distance field.ecsv --band Ks --colour J-Ks --reddening-from-colour --feh -0.2 --age-range 1:10
 """
 
 
 def add_arguments(p):
     p.add_argument("catalog", help="catalogue file (.csv .ecsv .fits .vot .parquet)")
     p.add_argument("--band", required=True, help="band of the clump luminosity function (I or Ks best)")
-    p.add_argument("--color", default=None, metavar="A-B",
+    p.add_argument("--colour", "--color", dest="colour", action=RenamedOption, default=None, metavar="A-B",
                    help="colour for reddening, e.g. J-Ks (any band order; names case-insensitive)")
     p.add_argument("--columns", default=None, help="column mapping, e.g. Ks=kmag,J=jmag")
     g = p.add_argument_group("population")
@@ -31,12 +31,14 @@ def add_arguments(p):
     g.add_argument("--age-sd", type=float, default=0.0, help="uncertainty of the age (Gyr)")
     g.add_argument("--eta", type=float, default=0.3, help="Reimers eta (default 0.3)")
     r = p.add_argument_group("reddening")
-    r.add_argument("--ebv", type=float, default=None, help="E(B-V) (default 0 unless --reddening-from-color)")
+    r.add_argument("--ebv", type=float, default=None, help="E(B-V) (default 0 unless --reddening-from-colour)")
     r.add_argument("--ebv-sd", type=float, default=0.0)
-    r.add_argument("--reddening-from-color", action="store_true", help="derive E(B-V) from the clump colour")
+    r.add_argument("--reddening-from-colour", "--reddening-from-color", dest="reddening_from_colour",
+                   action=RenamedOption, flag=True, help="derive E(B-V) from the clump colour")
     r.add_argument("--rv", type=float, default=3.1)
     r.add_argument("--extinction-law", default="F99")
-    p.add_argument("--region", default=None, help="fit window MAG_BRIGHT,MAG_FAINT")
+    p.add_argument("--mag-range", "--region", dest="mag_range", action=RenamedOption, default=None,
+                   metavar="MAG_BRIGHT,MAG_FAINT", help="fit window of the luminosity function (default: peak ± 1.5 mag)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--out", default=None, help="result directory (result.json, lf.png)")
     p.add_argument("--force", action="store_true")
@@ -83,13 +85,13 @@ def _report_inputs(args) -> dict:
         age = f"{args.age_range.replace(':', ' – ')}, constant star formation"
     else:
         age = f"{args.age:g} ± {args.age_sd:g} (--age-sd)"
-    redd = (f"from the clump colour {args.color}" if args.reddening_from_color
+    redd = (f"from the clump colour {args.colour}" if args.reddening_from_colour
             else f"E(B − V) = {args.ebv or 0.0:g} ± {args.ebv_sd:g} mag (given)")
-    return {"catalog": args.catalog, "band": args.band, "colour": args.color,
+    return {"catalog": args.catalog, "band": args.band, "colour": args.colour,
             "[Fe/H] [dex]": f"{args.feh:g} ± {args.feh_sd:g} (--feh-sd)", "[alpha/Fe] [dex]": args.alpha_fe,
             "age [Gyr]": age, "Reimers η (mass loss of the clump model)": args.eta, "reddening": redd,
             "extinction law": f"{args.extinction_law}, R_V = {args.rv:g}",
-            "fit window [mag]": args.region or "automatic (peak ± 1.5 mag)",
+            "fit window [mag]": args.mag_range or "automatic (peak ± 1.5 mag)",
             "clump calibration σ [mag]": CALIBRATION_SD_MAG, "column mapping": args.columns}
 
 
@@ -98,17 +100,17 @@ def run(args):
     from hbmodel.io.catalogues import atomic_write_json, check_output_dir, drop_missing, read_catalog, staged_out_dir
     from hbmodel.photometry.magnitudes import parse_colour, resolve_band
     band = resolve_band(args.band, "--band")
-    colour = parse_colour(args.color, "--color") if args.color else None
-    args.band, args.color = band, ("-".join(colour) if colour else None)  # canonical names in the run record
-    if args.reddening_from_color and colour is None:
-        raise ValueError("--reddening-from-color needs --color")
+    colour = parse_colour(args.colour, "--colour") if args.colour else None
+    args.band, args.colour = band, ("-".join(colour) if colour else None)  # canonical names in the run record
+    if args.reddening_from_colour and colour is None:
+        raise ValueError("--reddening-from-colour needs --colour")
     if args.ebv is not None and args.ebv < 0:
         raise ValueError("E(B-V) must be non-negative")
     from hbmodel.core.limits import catalog_task_estimate, check_budget
     check_budget(catalog_task_estimate("distance", args.catalog, out=args.out), max_memory=args.max_memory,
                  max_disk=args.max_disk)
     mapping = canonical_columns(parse_mapping(args.columns, "--columns"))
-    needed = [band] + (list(colour) if colour and args.reddening_from_color else [])
+    needed = [band] + (list(colour) if colour and args.reddening_from_colour else [])
     t = read_catalog(args.catalog, columns=mapping or None, required=sorted(set(needed)))
     if len(t) == 0:
         raise ValueError("the catalogue is empty")
@@ -116,13 +118,13 @@ def run(args):
     mag = np.asarray(t[band], float)
     err = np.asarray(t[f"{band}_err"], float) if f"{band}_err" in t.colnames else None
     region = None
-    if args.region:
-        region = tuple(parse_floats(args.region, 2, "--region"))
+    if args.mag_range:
+        region = tuple(parse_floats(args.mag_range, 2, "--mag-range"))
         if region[0] >= region[1]:
-            raise ValueError("--region must be MAG_BRIGHT,MAG_FAINT with MAG_BRIGHT < MAG_FAINT")
+            raise ValueError("--mag-range must be MAG_BRIGHT,MAG_FAINT with MAG_BRIGHT < MAG_FAINT")
     pop = _population(args.feh, args.alpha_fe, args.age, args.age_range, args.eta)
     out = check_output_dir(args.out, force=args.force) if args.out else None  # refused now, not after the work
-    ebv = None if args.reddening_from_color else (args.ebv or 0.0)
+    ebv = None if args.reddening_from_colour else (args.ebv or 0.0)
     cm = {b: np.asarray(t[b], float) for b in set(needed)} if ebv is None else None
     res = measure_distance(mag, pop, band, colour_mags=cm, colour=colour, ebv=ebv, ebv_sd=args.ebv_sd,
                            rv=args.rv, law=args.extinction_law, population_sd_mag=population_sd(args, band),

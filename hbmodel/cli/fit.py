@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import math
 
+from hbmodel.cli.common import RenamedOption
+
 NAME = "fit"
 HELP = "infer the mean RGB mass loss and its star-to-star spread from an HB/clump catalogue (and/or masses)"
 DESCRIPTION = """Fit the HB / red clump of a catalogue (columns <band>, <band>_err) with the hbmodel surrogate and
@@ -20,9 +22,9 @@ def add_arguments(p):
     p.add_argument("catalog", nargs="?", default=None, metavar="CATALOG",
                    help="photometric catalogue (CSV, ECSV, FITS, VOTable, Parquet)")
     p.add_argument("--bands", default="V,I",
-                   help="FIRST,SECOND: magnitude axis FIRST, colour FIRST-SECOND unless --color")
-    p.add_argument("--color", default=None, metavar="A-B",
-                   help="colour axis A-B of the two --bands in either order, e.g. --bands Ks,J --color J-Ks")
+                   help="FIRST,SECOND: magnitude axis FIRST, colour FIRST-SECOND unless --colour")
+    p.add_argument("--colour", "--color", dest="colour", action=RenamedOption, default=None, metavar="A-B",
+                   help="colour axis A-B of the two --bands in either order, e.g. --bands Ks,J --colour J-Ks")
     g = p.add_argument_group("population")
     g.add_argument("--feh", type=float, required=True, help="[Fe/H] (dex)")
     g.add_argument("--alpha-fe", type=float, default=0.0, help="[alpha/Fe] (dex), default 0")
@@ -43,7 +45,7 @@ def add_arguments(p):
                    help="mass-loss spread, helium spread, or both (default spread)")
     p.add_argument("--no-compare", action="store_true", help="skip the model comparison")
     p.add_argument("--region", default=None, metavar="CMIN,CMAX,MBRIGHT,MFAINT",
-                   help="fitted CMD box, colour as --color (default: model HB/clump extent plus margins)")
+                   help="fitted CMD box, colour as --colour (default: model HB/clump extent plus margins)")
     p.add_argument("--columns", default=None, metavar="V=vmag,I=imag,...",
                    help="map canonical names to catalogue columns")
     p.add_argument("--masses", default=None, metavar="FILE", help="measured masses: mass, mass_err, phase")
@@ -82,8 +84,8 @@ def run(args):
         return run_counts(args)
     require_population(args)
     bands = parse_bands(args.bands, "--bands", n=2)
-    colour = colour_of(args.color, bands)
-    args.bands, args.color = ",".join(bands), ("-".join(colour) if colour else None)  # canonical in the record
+    colour = colour_of(args.colour, bands)
+    args.bands, args.colour = ",".join(bands), ("-".join(colour) if colour else None)  # canonical in the record
     if args.catalog is None and args.masses is None:
         raise ValueError("give a CATALOG and/or --masses FILE")
     if not (math.isfinite(args.age) and args.age > 0):

@@ -15,7 +15,7 @@ import importlib
 import sys
 
 from hbmodel.core.version import __version__
-from hbmodel.cli.common import add_resource_arguments, toml_parser
+from hbmodel.cli.common import add_resource_arguments, renamed_config_keys, toml_parser, warn_renamed
 
 #: Sub-command modules, in the order ``hbmodel --help`` lists them.
 COMMANDS = ("predict", "mock", "fit", "distance", "classify", "batch", "demo")
@@ -47,6 +47,10 @@ def _load_config(path: str) -> dict:
 def _apply_config(parser: argparse.ArgumentParser, argv: list[str], cfg: dict):
     """Use config values as parser defaults so that explicit flags override them."""
     known = {a.dest: a for a in parser._actions}
+    renamed = renamed_config_keys(parser)
+    for old in [k for k in cfg if k in renamed and k not in known]:
+        warn_renamed(_key(old), _key(renamed[old]) + " in the config file")
+        cfg[renamed[old]] = cfg.pop(old)
     unknown = sorted(set(cfg) - set(known))
     if unknown:
         raise UserError(f"unknown option(s) in config file: {', '.join(unknown)}")

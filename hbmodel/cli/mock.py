@@ -3,7 +3,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from hbmodel.cli.common import add_population_arguments, colour_of, parse_floats, parse_mapping, population_from_args
+from hbmodel.cli.common import (RenamedOption, add_population_arguments, colour_of, parse_floats, parse_mapping,
+                                population_from_args)
 
 NAME = "mock"
 HELP = "generate a realistic mock catalogue (RGB, HB, early AGB, field) of a population"
@@ -42,7 +43,7 @@ def add_arguments(p):
     o = p.add_argument_group("observation")
     o.add_argument("--bands", required=True, help="comma-separated bands, e.g. V,I (first = magnitude axis; "
                    "names are case-insensitive, aliases such as K = Ks accepted)")
-    o.add_argument("--color", default=None, metavar="A-B",
+    o.add_argument("--colour", "--color", dest="colour", action=RenamedOption, default=None, metavar="A-B",
                    help="colour of --plot and --field-box, two of --bands in any order (default FIRST-SECOND)")
     o.add_argument("--distance-modulus", type=float, default=0.0)
     o.add_argument("--ebv", type=float, default=0.0, help="mean E(B-V)")
@@ -56,7 +57,7 @@ def add_arguments(p):
     o.add_argument("--binary-fraction", type=float, default=0.0, help="fraction of unresolved binaries")
     o.add_argument("--field-n", type=int, default=0, help="number of field contaminants")
     o.add_argument("--field-box", default=None, help="CMIN,CMAX,MBRIGHT,MFAINT box for uniform contaminants "
-                   "(colour --color, magnitude FIRST band)")
+                   "(colour --colour, magnitude FIRST band)")
     o.add_argument("--field-catalog", default=None, help="field catalogue to resample contaminants from")
     o.add_argument("--window", default=None, help="keep only BAND:BRIGHT:FAINT, e.g. I:13:16")
     p.add_argument("--seed", type=int, default=0, help="random seed (same seed -> identical file)")
@@ -74,7 +75,7 @@ def run(args):
 
     from hbmodel.photometry.magnitudes import parse_bands, resolve_band
     bands = list(parse_bands(args.bands, "--bands"))
-    colour = colour_of(args.color, bands)
+    colour = colour_of(args.colour, bands)
     if colour is None and len(bands) > 1:
         colour = (bands[0], bands[1])
     if (args.n_hb is None) == (args.total_mass is None):
@@ -88,7 +89,7 @@ def run(args):
         box = tuple(parse_floats(args.field_box, 4, "--field-box (CMIN,CMAX,MBRIGHT,MFAINT)"))
         if colour is None or bands[0] not in colour:
             raise ValueError(f"--field-box needs a colour that contains the magnitude band {bands[0]} "
-                             f"(got {'-'.join(colour) if colour else 'one band'}); set --color")
+                             f"(got {'-'.join(colour) if colour else 'one band'}); set --colour")
         if not (box[0] < box[1] and box[2] < box[3]):
             raise ValueError(f"--field-box {args.field_box}: need CMIN < CMAX and MBRIGHT < MFAINT")
     window = None
