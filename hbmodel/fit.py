@@ -759,7 +759,15 @@ class MassLossFit:
             cov = self._laplace(names, x_map)
             p0 = rng.multivariate_normal(x_map, cov, size=nw)
         except (np.linalg.LinAlgError, ValueError):
+            cov = None
             p0 = x_map[None] + 0.1 * self._steps(names)[None] * rng.standard_normal((nw, d))
+        if self._has_cmd and cov is not None and "shift_colour" in names:
+            # the likelihood forms the walkers' images on the pixels their stars reach: from here on the
+            # walkers' shifts stay within a few Laplace widths of the MAP (outside: the whole prior box's)
+            i, k = names.index("shift_colour"), names.index("shift_mag")
+            half = _FOCUS_SIGMAS * np.sqrt(np.maximum(np.diag(cov)[[i, k]], 0.0))
+            centre = x_map[[i, k]]
+            self.likelihood_.focus_shifts(centre - half, centre + half)
         for i, n in enumerate(names):
             lo, hi = self._bnds[n]
             x = p0[:, i]
@@ -979,11 +987,13 @@ class MassLossFit:
 
     def _binned_model(self, theta, ce, me, sub=6):
         """Model counts integrated over each Hess bin (``sub`` x ``sub`` midpoints per bin: a narrow
-        locus is not sampled correctly by one midpoint per bin)."""
+        locus is not sampled correctly by one midpoint per bin); ``theta`` one point or (n, d) points."""
         fc = np.linspace(ce[0], ce[-1], (ce.size - 1) * sub + 1)
         fm = np.linspace(me[0], me[-1], (me.size - 1) * sub + 1)
-        fine = self.likelihood_.model_hess(self._unpack(np.asarray(theta)[None], self.param_names_), fc, fm)
-        return fine.reshape(me.size - 1, sub, ce.size - 1, sub).sum(axis=(1, 3))
+        theta = np.asarray(theta, float)
+        fine = self.likelihood_.model_hess_batch(self._unpack(np.atleast_2d(theta), self.param_names_), fc, fm)
+        out = fine.reshape(-1, me.size - 1, sub, ce.size - 1, sub).sum(axis=(2, 4))
+        return out[0] if theta.ndim == 1 else out
 
     def goodness_of_fit(self, n_rep=100, nbins=(30, 30), seed=0):
         """Posterior-predictive p-value (Gelman, Meng & Stern 1996, Stat. Sinica 6, 733) of the Hess
@@ -999,8 +1009,7 @@ class MassLossFit:
         chain = np.asarray(self.chain_theta_, float)
         idx = rng.choice(chain.shape[0], size=min(n_rep, chain.shape[0]), replace=False)
         d_obs, d_rep = [], []
-        for k in idx:
-            model = self._binned_model(chain[k], ce, me)
+        for model in self._binned_model(chain[idx], ce, me):  # one batched pass over the draws
             d_obs.append(hess_poisson_deviance(obs, model))
             d_rep.append(hess_poisson_deviance(rng.poisson(model), model))
         d_obs, d_rep = np.array(d_obs), np.array(d_rep)
@@ -1103,6 +1112,10 @@ class MassLossFit:
         from .plots import plot_hb_mass
         return plot_hb_mass(self, truth=truth)[0]
 
+
+#: Half-width, in Laplace standard deviations about the MAP, of the shift box whose stars' pixels the
+#: sampler's likelihood keeps (own choice; walkers beyond it only cost more, their values are the same).
+_FOCUS_SIGMAS = 8.0
 
 #: Steps of the pilot runs of :meth:`MassLossFit._run_emcee` (differential evolution, then the proposal
 #: of the first) and the share of independence-proposal steps after them (measured: scripts/bench_fit.py).
