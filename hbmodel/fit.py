@@ -527,6 +527,9 @@ class MassLossFit:
                        "shift_colour": self._shift_mu[0] if self._has_cmd else 0,
                        "shift_mag": self._shift_mu[1] if self._has_cmd else 0}.get(n, 0.5 * (lo + hi)))
         x0 = np.array(x0, float)
+        if "ebv_spread" in names and self._has_cmd:  # at a spread of the likelihood's pre-convolved basis
+            i = names.index("ebv_spread")
+            x0[i] = self.likelihood_.nearest_spread_level(x0[i])
         if not scan:
             return x0
         lo, hi = self._bnds["mass_loss"]
@@ -552,12 +555,13 @@ class MassLossFit:
                 out.append(st[n])
         return np.array(out)
 
-    def _map(self, names, x0=None):
-        """Posterior maximum: Nelder-Mead from the mass-loss scan's best point (or from ``x0``)."""
+    def _map(self, names, x0=None, step_scale=1.0):
+        """Posterior maximum: Nelder-Mead from the mass-loss scan's best point (or from ``x0``, with the
+        initial simplex ``step_scale`` times the usual steps: smaller from a nearby maximum)."""
         from scipy.optimize import minimize
         f = self._log_post_fn(names)
         x0 = self._start(names) if x0 is None else x0
-        steps = self._steps(names)
+        steps = self._steps(names) * step_scale
         best = None
         x = x0
         for _ in range(2):  # a restart shakes Nelder-Mead out of a collapsed simplex
@@ -923,8 +927,8 @@ class MassLossFit:
         cov_fixed = cov4.copy()
         cov_fixed[2, 2] = cov_fixed[3, 3] = 0.0
         self._shift_icov = np.linalg.inv(A @ cov_fixed @ A.T)
-        try:
-            x0, _ = self._map(names, x0=x_map.copy())
+        try:  # the maximum moves little from the free-zero-point MAP: a smaller initial simplex
+            x0, _ = self._map(names, x0=x_map.copy(), step_scale=_ZP_STEP_SCALE)
         finally:
             self._shift_icov, self._shift_mu = saved
         post = self.posterior_
@@ -1112,6 +1116,10 @@ class MassLossFit:
         from .plots import plot_hb_mass
         return plot_hb_mass(self, truth=truth)[0]
 
+
+#: Initial Nelder-Mead simplex of the zero-point sensitivity's MAP (started at the free-zero-point MAP), in
+#: units of the usual steps (own choice).
+_ZP_STEP_SCALE = 0.25
 
 #: Half-width, in Laplace standard deviations about the MAP, of the shift box whose stars' pixels the
 #: sampler's likelihood keeps (own choice; walkers beyond it only cost more, their values are the same).

@@ -504,6 +504,9 @@ class CMDLikelihood:
         return np.maximum(out, 0.0, out=out)
 
     # ------------------------------------------------------------------ fast path: the model at the stars
+    #: Form the walkers' models on the stars' pixels from the pre-convolved basis (False: whole images
+    #: convolved exactly per walker, the reference the fast path is tested against).
+    at_stars = True
     #: Spacing of the spreads at which the basis is pre-convolved, in units of sqrt(W), W the variance (in
     #: E(B-V)^2) of the narrowest image feature along the reddening vector (own choice: the cubic Hermite
     #: interpolation in V = spread^2 between them then changes the log-likelihood of a 1,745-star fit by
@@ -570,22 +573,22 @@ class CMDLikelihood:
         if np.all(hi > lo):
             self._views.insert(0, self._view(lo, hi))
 
-    def _level(self, view, j, l, rows):
-        """Basis of helium node ``j`` convolved at level ``l`` on the pixels of ``view``: [B, D, done] with
-        B, D of shape (n_nodes + 2, n_pix): row 0 and the last row the RGB, row k + 1 mass node k (a block
-        of nodes and the RGB are then one contiguous slice of rows); D None without a convolution.
-        ``rows``: basis indices (mass nodes, n_nodes = the RGB) that must be computed.  A narrower view
-        copies its pixels from the whole box's arrays."""
+    def _level(self, view, j, l, rows, deriv=True):
+        """Basis of helium node ``j`` convolved at level ``l`` on the pixels of ``view``: [B, D, done_B,
+        done_D] with B, D of shape (n_nodes + 2, n_pix): row 0 and the last row the RGB, row k + 1 mass node
+        k (a block of nodes and the RGB are then one contiguous slice of rows); D None without a
+        convolution.  ``rows``: basis indices (mass nodes, n_nodes = the RGB) that must be computed (in D
+        too if ``deriv``).  A narrower view copies its pixels from the whole box's arrays."""
         cache = view["cache"]
         key = (j, l)
         ent = cache.get(key)
         K = self.s.hb_images[j].shape[0]
         npix = view["pix"].size
+        has_d = self._blur_q is not None
         if ent is None:
-            deriv = self._blur_q is not None
-            ent = [np.zeros((K + 2, npix), np.float32), np.zeros((K + 2, npix), np.float32) if deriv else None,
-                   np.zeros(K + 1, bool)]
-            size = ent[0].nbytes * (2 if deriv else 1)
+            ent = [np.zeros((K + 2, npix), np.float32), np.zeros((K + 2, npix), np.float32) if has_d else None,
+                   np.zeros(K + 1, bool), np.zeros(K + 1, bool)]
+            size = ent[0].nbytes * (2 if has_d else 1)
             used = sum(e[0].nbytes * (2 if e[1] is not None else 1) for e in cache.values())
             while cache and used + size > self._LEVEL_BUDGET // len(self._views):
                 _, old = cache.popitem(last=False)
@@ -593,31 +596,33 @@ class CMDLikelihood:
             cache[key] = ent
         else:
             cache.move_to_end(key)
-        todo = rows[~ent[2][rows]]
-        if todo.size:
+        todo_b = rows[~ent[2][rows]]
+        todo_d = rows[~ent[3][rows]] if (deriv and has_d) else rows[:0]
+        if todo_b.size or todo_d.size:
             if view is self._views[-1]:
-                self._convolve_rows(view, j, l, todo, ent)
+                self._convolve_rows(view, j, l, todo_b, todo_d, ent)
             else:
                 wide = self._views[-1]
-                src = self._level(wide, j, l, todo)
+                src = self._level(wide, j, l, np.union1d(todo_b, todo_d), deriv)
                 sub = wide["cmap"][view["pix"]]
-                st = np.unique(np.where(todo == K, 0, todo + 1))
-                if np.any(todo == K):
-                    st = np.append(st, K + 1)
-                for dst, arr in ((ent[0], src[0]), (ent[1], src[1])):
-                    if dst is not None:
+                for todo, dst, arr, flag in ((todo_b, ent[0], src[0], ent[2]), (todo_d, ent[1], src[1], ent[3])):
+                    if todo.size:
+                        st = np.where(todo == K, 0, todo + 1)
+                        if np.any(todo == K):
+                            st = np.append(st, K + 1)
                         dst[st] = arr[st][:, sub]
-                ent[2][todo] = True
+                        flag[todo] = True
         return ent
 
-    def _convolve_rows(self, view, j, l, rows, ent):
-        """Convolve basis rows (mass nodes, K = the RGB) of helium node ``j`` at level ``l`` (transforms of
-        the zero-padded images kept per row for the fit).  The convolved rows are not clipped at zero: their
-        float rounding then averages out in the walkers' sums, which are clipped."""
+    def _convolve_rows(self, view, j, l, rows_b, rows_d, ent):
+        """Convolve basis rows (mass nodes, K = the RGB) of helium node ``j`` at level ``l`` into B
+        (``rows_b``) and its V-derivative D (``rows_d``); the transforms of the zero-padded images are kept
+        per row for the fit.  The convolved rows are not clipped at zero: their float rounding then averages
+        out in the walkers' sums, which are clipped."""
         s = self.s
         nm, nc = s.shape
         K = s.hb_images[j].shape[0]
-        B, D, done = ent
+        B, D, done_b, done_d = ent
         pix = view["pix"]
         V = float(self._levels[l])
 
@@ -628,36 +633,44 @@ class CMDLikelihood:
 
         def plain(r):
             return np.stack([s.rgb_images[j] if k == K else s.hb_images[j][k] for k in r])
-        if D is None:  # no convolution: the basis itself
-            store(B, rows, plain(rows)[:, pix])
-            done[rows] = True
+        if V == 0 and rows_b.size:  # no convolution: the basis itself
+            store(B, rows_b, plain(rows_b)[:, pix])
+            done_b[rows_b] = True
+            rows_b = rows_b[:0]
+        if not (rows_b.size or rows_d.size):
             return
         q, shape = self._blur_q[self._BLUR_LEVELS[-1]]
         spec = self._spectra.get(j)
         if spec is None:
             spec = self._spectra[j] = [np.zeros((K + 1,) + q.shape, np.complex64), np.zeros(K + 1, bool)]
         F, have = spec
+        rows = np.union1d(rows_b, rows_d)
         need = rows[~have[rows]]
         for a in range(0, need.size, 16):  # chunks of basis images (memory)
             r = need[a:a + 16]
             F[r] = sfft.rfft2(plain(r).reshape(-1, nm, nc), s=shape, axes=(1, 2), workers=1)
         have[need] = True
         m = np.exp(-V * q)
-        for a in range(0, rows.size, 16):
-            r = rows[a:a + 16]
-            f = F[r] * m
-            if V > 0:
-                store(B, r, sfft.irfft2(f, s=shape, axes=(1, 2), workers=1)[:, :nm, :nc].reshape(r.size, -1)[:, pix])
-            else:
-                store(B, r, plain(r)[:, pix])
-            f *= -q
-            store(D, r, sfft.irfft2(f, s=shape, axes=(1, 2), workers=1)[:, :nm, :nc].reshape(r.size, -1)[:, pix])
-        done[rows] = True
+        for rr, mult, arr, flag in ((rows_b, m, B, done_b), (rows_d, -q * m, D, done_d)):
+            for a in range(0, rr.size, 16):
+                r = rr[a:a + 16]
+                store(arr, r, sfft.irfft2(F[r] * mult, s=shape, axes=(1, 2), workers=1)[:, :nm, :nc].reshape(
+                    r.size, -1)[:, pix])
+            flag[rr] = True
+
+    def nearest_spread_level(self, sd):
+        """The spread of the pre-convolved basis nearest to ``sd`` (``sd`` itself without a convolution):
+        a likelihood evaluated there needs one convolved level only."""
+        if self._blur_q is None or self._levels.size < 2:
+            return float(sd)
+        lv = np.sqrt(self._levels)
+        return float(lv[np.argmin(np.abs(lv - float(sd)))])
 
     def _pick_view(self, sc, sm, sd):
         """The narrowest view holding every walker's shift, or None (then the exact path): also None when a
         spread lies beyond the pre-convolved range."""
-        if sd is not None and self._blur_q is not None and not np.all(sd * sd <= self._levels[-1]):
+        if not self.at_stars or (sd is not None and self._blur_q is not None
+                                 and not np.all(sd * sd <= self._levels[-1])):
             return None
         for v in self._views:
             lo, hi = v["lo"], v["hi"]
@@ -704,7 +717,8 @@ class CMDLikelihood:
             for j, a, w, amp in blocks:
                 K = self.s.hb_images[j].shape[0]
                 b = a + w.shape[1]
-                B, D, _ = self._level(view, j, l, np.append(np.arange(a, b), K))
+                need_d = cd is not None and bool(np.any(cd != 0))
+                B, D = self._level(view, j, l, np.append(np.arange(a, b), K), need_d)[:2]
                 # storage rows: the block's nodes a..b-1 at a+1..b, the RGB at 0 and K+1: one slice with the
                 # RGB at its nearer end (zero weights for the nodes between)
                 wi = np.zeros((m, b - a + 1 + min(a, K - b)))
@@ -714,7 +728,7 @@ class CMDLikelihood:
                     lo, wi[:, :b - a], wi[:, -1] = a + 1, w[idx], amp[idx]
                 hi = lo + wi.shape[1]
                 for c, arr in ((cb, B), (cd, D)):
-                    if c is None:
+                    if c is None or (arr is D and not need_d):
                         continue
                     np.matmul(np.asarray(wi * c[:, None], np.float32), arr[lo:hi], out=out)
                     if m == n:
