@@ -709,28 +709,36 @@ class CMDLikelihood:
         if self._blur_q is not None and p.get("ebv_spread") is not None:
             sd = np.broadcast_to(np.abs(np.asarray(p["ebv_spread"], float)), (n,))
         npix = view["pix"].size
-        img, tmp = self._work(n, npix)
+        img, tmp, tmp2 = self._work(n, npix)
         img[:] = 0.0
         for l, idx, cb, cd in self._level_weights(sd, n):
             m = idx.size
-            out = tmp[:m]
+            out, rgb = tmp[:m], tmp2[:m]
             for j, a, w, amp in blocks:
                 K = self.s.hb_images[j].shape[0]
                 b = a + w.shape[1]
                 need_d = cd is not None and bool(np.any(cd != 0))
                 B, D = self._level(view, j, l, np.append(np.arange(a, b), K), need_d)[:2]
-                # storage rows: the block's nodes a..b-1 at a+1..b, the RGB at 0 and K+1: one slice with the
-                # RGB at its nearer end (zero weights for the nodes between)
-                wi = np.zeros((m, b - a + 1 + min(a, K - b)))
-                if a <= K - b:
-                    lo, wi[:, 0], wi[:, a + 1:] = 0, amp[idx], w[idx]
+                # storage rows: the block's nodes a..b-1 at a+1..b, the RGB at 0 and K+1: next to the block
+                # the RGB joins its matrix product, else it is added as an outer product
+                if a == 0 or b == K:
+                    wi = np.zeros((m, b - a + 1))
+                    lo, sl_w, sl_a = (0, slice(1, None), 0) if a == 0 else (a + 1, slice(0, -1), -1)
+                    wi[:, sl_w], wi[:, sl_a] = w[idx], amp[idx]
+                    separate = False
                 else:
-                    lo, wi[:, :b - a], wi[:, -1] = a + 1, w[idx], amp[idx]
+                    wi, lo, separate = w[idx], a + 1, True
                 hi = lo + wi.shape[1]
                 for c, arr in ((cb, B), (cd, D)):
                     if c is None or (arr is D and not need_d):
                         continue
-                    np.matmul(np.asarray(wi * c[:, None], np.float32), arr[lo:hi], out=out)
+                    if hi > lo:
+                        np.matmul(np.asarray(wi * c[:, None], np.float32), arr[lo:hi], out=out)
+                    else:
+                        out[:] = 0.0
+                    if separate:
+                        np.multiply(np.asarray(amp[idx] * c, np.float32)[:, None], arr[0][None, :], out=rgb)
+                        out += rgb
                     if m == n:
                         img += out
                     else:
@@ -748,12 +756,12 @@ class CMDLikelihood:
         return rho, z
 
     def _work(self, n, npix):
-        """Two reusable float32 work arrays (n, npix) (no fresh large allocations per call)."""
+        """Three reusable float32 work arrays (n, npix) (no fresh large allocations per call)."""
         size = max(n, 16) * npix
         buf = getattr(self, "_work_buf", None)
         if buf is None or buf.shape[1] < size:
-            buf = self._work_buf = np.empty((2, size), np.float32)
-        return buf[0, :n * npix].reshape(n, npix), buf[1, :n * npix].reshape(n, npix)
+            buf = self._work_buf = np.empty((3, size), np.float32)
+        return tuple(buf[i, :n * npix].reshape(n, npix) for i in range(3))
 
     def _density_at_stars(self, view, img, sc, sm):
         """:meth:`density_at` of the stars for images given on the stars' pixels (n, n_pix)."""
