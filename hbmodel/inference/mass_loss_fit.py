@@ -527,6 +527,9 @@ class MassLossFit:
                        "shift_colour": self._shift_mu[0] if self._has_cmd else 0,
                        "shift_mag": self._shift_mu[1] if self._has_cmd else 0}.get(n, 0.5 * (lo + hi)))
         x0 = np.array(x0, float)
+        if "ebv_spread" in names and self._has_cmd:  # at a spread of the likelihood's pre-convolved basis
+            i = names.index("ebv_spread")
+            x0[i] = self.likelihood_.nearest_spread_level(x0[i])
         if not scan:
             return x0
         lo, hi = self._bnds["mass_loss"]
@@ -552,12 +555,13 @@ class MassLossFit:
                 out.append(st[n])
         return np.array(out)
 
-    def _map(self, names, x0=None):
-        """Posterior maximum: Nelder-Mead from the mass-loss scan's best point (or from ``x0``)."""
+    def _map(self, names, x0=None, step_scale=1.0):
+        """Posterior maximum: Nelder-Mead from the mass-loss scan's best point (or from ``x0``, with the
+        initial simplex ``step_scale`` times the usual steps: smaller from a nearby maximum)."""
         from scipy.optimize import minimize
         f = self._log_post_fn(names)
         x0 = self._start(names) if x0 is None else x0
-        steps = self._steps(names)
+        steps = self._steps(names) * step_scale
         best = None
         x = x0
         for _ in range(2):  # a restart shakes Nelder-Mead out of a collapsed simplex
@@ -759,7 +763,15 @@ class MassLossFit:
             cov = self._laplace(names, x_map)
             p0 = rng.multivariate_normal(x_map, cov, size=nw)
         except (np.linalg.LinAlgError, ValueError):
+            cov = None
             p0 = x_map[None] + 0.1 * self._steps(names)[None] * rng.standard_normal((nw, d))
+        if self._has_cmd and cov is not None and "shift_colour" in names:
+            # the likelihood forms the walkers' images on the pixels their stars reach: from here on the
+            # walkers' shifts stay within a few Laplace widths of the MAP (outside: the whole prior box's)
+            i, k = names.index("shift_colour"), names.index("shift_mag")
+            half = _FOCUS_SIGMAS * np.sqrt(np.maximum(np.diag(cov)[[i, k]], 0.0))
+            centre = x_map[[i, k]]
+            self.likelihood_.focus_shifts(centre - half, centre + half)
         for i, n in enumerate(names):
             lo, hi = self._bnds[n]
             x = p0[:, i]
@@ -915,8 +927,8 @@ class MassLossFit:
         cov_fixed = cov4.copy()
         cov_fixed[2, 2] = cov_fixed[3, 3] = 0.0
         self._shift_icov = np.linalg.inv(A @ cov_fixed @ A.T)
-        try:
-            x0, _ = self._map(names, x0=x_map.copy())
+        try:  # the maximum moves little from the free-zero-point MAP: a smaller initial simplex
+            x0, _ = self._map(names, x0=x_map.copy(), step_scale=_ZP_STEP_SCALE)
         finally:
             self._shift_icov, self._shift_mu = saved
         post = self.posterior_
@@ -979,11 +991,13 @@ class MassLossFit:
 
     def _binned_model(self, theta, ce, me, sub=6):
         """Model counts integrated over each Hess bin (``sub`` x ``sub`` midpoints per bin: a narrow
-        locus is not sampled correctly by one midpoint per bin)."""
+        locus is not sampled correctly by one midpoint per bin); ``theta`` one point or (n, d) points."""
         fc = np.linspace(ce[0], ce[-1], (ce.size - 1) * sub + 1)
         fm = np.linspace(me[0], me[-1], (me.size - 1) * sub + 1)
-        fine = self.likelihood_.model_hess(self._unpack(np.asarray(theta)[None], self.param_names_), fc, fm)
-        return fine.reshape(me.size - 1, sub, ce.size - 1, sub).sum(axis=(1, 3))
+        theta = np.asarray(theta, float)
+        fine = self.likelihood_.model_hess_batch(self._unpack(np.atleast_2d(theta), self.param_names_), fc, fm)
+        out = fine.reshape(-1, me.size - 1, sub, ce.size - 1, sub).sum(axis=(2, 4))
+        return out[0] if theta.ndim == 1 else out
 
     def goodness_of_fit(self, n_rep=100, nbins=(30, 30), seed=0):
         """Posterior-predictive p-value (Gelman, Meng & Stern 1996, Stat. Sinica 6, 733) of the Hess
@@ -999,8 +1013,7 @@ class MassLossFit:
         chain = np.asarray(self.chain_theta_, float)
         idx = rng.choice(chain.shape[0], size=min(n_rep, chain.shape[0]), replace=False)
         d_obs, d_rep = [], []
-        for k in idx:
-            model = self._binned_model(chain[k], ce, me)
+        for model in self._binned_model(chain[idx], ce, me):  # one batched pass over the draws
             d_obs.append(hess_poisson_deviance(obs, model))
             d_rep.append(hess_poisson_deviance(rng.poisson(model), model))
         d_obs, d_rep = np.array(d_obs), np.array(d_rep)
@@ -1084,6 +1097,14 @@ class MassLossFit:
                                                               sd[idx, None])
         return grid, np.percentile(dens, [16, 50, 84], axis=0)
 
+
+#: Initial Nelder-Mead simplex of the zero-point sensitivity's MAP (started at the free-zero-point MAP), in
+#: units of the usual steps (own choice).
+_ZP_STEP_SCALE = 0.25
+
+#: Half-width, in Laplace standard deviations about the MAP, of the shift box whose stars' pixels the
+#: sampler's likelihood keeps (own choice; walkers beyond it only cost more, their values are the same).
+_FOCUS_SIGMAS = 8.0
 
 #: Steps of the pilot runs of :meth:`MassLossFit._run_emcee` (differential evolution, then the proposal
 #: of the first) and the share of independence-proposal steps after them (measured: scripts/bench_fit.py).
