@@ -90,7 +90,8 @@ def run(regime: str, n_draws: int, *, bands=("V", "I"), sampler="laplace", ebv_s
         hi68.append(q[3]); hi95.append(q[4])
         if verbose:
             print(f"  {regime} draw {k + 1:3d}/{n_draws}: truth {truth:.4f}  fit {q[2]:.4f} "
-                  f"[{q[1]:.4f}, {q[3]:.4f}]  ({time.perf_counter() - t0:.0f} s)", flush=True)
+                  f"[{q[1]:.4f}, {q[3]:.4f}] 95% [{q[0]:.4f}, {q[4]:.4f}]  ({time.perf_counter() - t0:.0f} s)",
+                  flush=True)
     t, lo68, hi68 = np.array(truths), np.array(lo68), np.array(hi68)
     c68 = float(np.mean((lo68 <= t) & (t <= hi68)))
     c95 = float(np.mean((np.array(lo95) <= t) & (t <= np.array(hi95))))
