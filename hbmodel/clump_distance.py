@@ -44,7 +44,7 @@ _MODEL_N_HB = 6000
 #: Nodes of the differential-reddening spread (equal prior mass each) and the range of the clump's own
 #: width (and of the RGB bump-to-clump ratio) allowed about the population model's (own choice: known to
 #: ~20 %; an age or metallicity spread of the data widens the clump beyond it, which the spread then absorbs).
-SPREAD_NODES = 8
+SPREAD_NODES = 16
 OWN_WIDTH_RANGE = (0.8, 1.25)
 
 
