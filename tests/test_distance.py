@@ -189,3 +189,27 @@ def test_differential_reddening_nuisance_without_spread_keeps_the_distance():
     assert nuis.ebv_spread["median"] < 0.03
     assert nuis.distance_modulus["median"] == pytest.approx(plain.distance_modulus["median"], abs=0.01)
     assert abs(nuis.distance_modulus["median"] - 12.0) < 0.05
+
+
+@pytest.mark.parametrize("value", ["-0.1", "nan", "2"])
+def test_cli_bad_ebv_spread_is_one_line(tmp_path, value):
+    # bad input: a one-line error and exit 2 before any fitting (owner's rule)
+    t = _field(5)
+    t.write(tmp_path / "f.ecsv")
+    proc = subprocess.run([sys.executable, "-m", "hbmodel", "distance", str(tmp_path / "f.ecsv"), "--band", "Ks",
+                           "--feh", "0", "--age", "4", "--ebv-spread", value], capture_output=True, text=True)
+    assert proc.returncode == 2, proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1 and "ebv-spread" in proc.stderr
+
+
+def test_cli_ebv_spread_reported(tmp_path):
+    # the spread's posterior reaches the JSON result; no injected spread -> a small spread (< 0.03 mag)
+    t = _field(5)
+    t.write(tmp_path / "f.ecsv")
+    proc = subprocess.run([sys.executable, "-m", "hbmodel", "distance", str(tmp_path / "f.ecsv"), "--band", "Ks",
+                           "--feh", "0", "--age", "4", "--ebv-spread", "0.05", "--json"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    d = json.loads(proc.stdout)
+    assert d["ebv_spread"]["prior_scale"] == 0.05 and d["ebv_spread"]["median"] < 0.03
+    assert abs(d["distance_modulus"]["median"] - 14.5) < 0.06
