@@ -16,6 +16,10 @@ of the first one, so one surrogate serves all fits (built once, cached).
     python scripts/sbc_fit.py --regime clump --n-draws 100              # Laplace (fast)
     python scripts/sbc_fit.py --regime blue-hb --n-draws 100 --sampler emcee --max-steps 3000
     python scripts/sbc_fit.py --regime clump --bands G,RP --ebv-spread --n-draws 50
+    python scripts/sbc_fit.py --regime clump --sampler emcee --max-steps 2000 --bands J,Ks --ebv-spread
+
+Every draw's line carries its 68 % and 95 % intervals, so an interrupted run can still be summarised.
+A CI-sized version (two emcee draws, Gaia bands, differential reddening) is in tests/test_fit_sbc.py.
 """
 from __future__ import annotations
 
