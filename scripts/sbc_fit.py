@@ -16,6 +16,10 @@ of the first one, so one surrogate serves all fits (built once, cached).
     python scripts/sbc_fit.py --regime clump --n-draws 100              # Laplace (fast)
     python scripts/sbc_fit.py --regime blue-hb --n-draws 100 --sampler emcee --max-steps 3000
     python scripts/sbc_fit.py --regime clump --bands G,RP --ebv-spread --n-draws 50
+    python scripts/sbc_fit.py --regime clump --sampler emcee --max-steps 2000 --bands J,Ks --ebv-spread
+
+Every draw's line carries its 68 % and 95 % intervals, so an interrupted run can still be summarised.
+A CI-sized version (two emcee draws, Gaia bands, differential reddening) is in tests/test_fit_sbc.py.
 """
 from __future__ import annotations
 
@@ -90,7 +94,8 @@ def run(regime: str, n_draws: int, *, bands=("V", "I"), sampler="laplace", ebv_s
         hi68.append(q[3]); hi95.append(q[4])
         if verbose:
             print(f"  {regime} draw {k + 1:3d}/{n_draws}: truth {truth:.4f}  fit {q[2]:.4f} "
-                  f"[{q[1]:.4f}, {q[3]:.4f}]  ({time.perf_counter() - t0:.0f} s)", flush=True)
+                  f"[{q[1]:.4f}, {q[3]:.4f}] 95% [{q[0]:.4f}, {q[4]:.4f}]  ({time.perf_counter() - t0:.0f} s)",
+                  flush=True)
     t, lo68, hi68 = np.array(truths), np.array(lo68), np.array(hi68)
     c68 = float(np.mean((lo68 <= t) & (t <= hi68)))
     c95 = float(np.mean((np.array(lo95) <= t) & (t <= np.array(hi95))))

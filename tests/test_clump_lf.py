@@ -163,11 +163,31 @@ def test_nan_rejected():
     (dict(mag_range=(15.3, 15.7)), "outside the calibrated range"),
     (dict(mag_range=(16.0, 15.0)), "m_lo < m_hi"),
     (dict(mag_range=(14.0, 17.0), peak_guess=18.0), "outside the fit window"),
+    (dict(bounds={"sigma_mag": (0.2, 0.1)}), "bounds of sigma_mag"),
+    (dict(bounds={"sigma_mag": (0.0, 0.1)}), "bounds of sigma_mag"),
 ])
 def test_bad_arguments(kwargs, msg):
     m = draw_lf(np.random.default_rng(1), 2000)
     with pytest.raises(ValueError, match=msg):
         fit_clump_lf(m, **kwargs)
+
+
+def test_blurred_clump_with_a_near_bump_needs_the_bump_ratio_bounded():
+    # A clump widened to 0.32 mag (e.g. differential reddening) with the RGB bump only 0.35 mag fainter
+    # (metal-rich, as the population model puts it at [Fe/H] 0, 4 Gyr) and ~15 % of the clump (Nataf et al.
+    # 2013, from memory): the free fit trades clump for bump (the two Gaussians overlap; measured here: bump
+    # ratio 0.6, its bound, and a peak error of 0.083 mag); the bump ratio and width bounded about the
+    # population's, as clump_distance does with a spread, break that (peak +0.028 +- 0.011 mag).  Bounds
+    # are honoured exactly.
+    rng = np.random.default_rng(3)
+    m = draw_lf(rng, 6000, sigma=0.32, bump_offset=0.35, bump_ratio=0.15)
+    kw = dict(mag_range=(LO, HI), bump_offset_range=(0.2, 0.5))
+    free = fit_clump_lf(m, **kw)
+    bounded = fit_clump_lf(m, bounds={"bump_ratio": (0.12, 0.19), "sigma_mag": (0.25, 0.4)}, **kw)
+    assert 0.12 <= bounded.params["bump_ratio"] <= 0.19 and 0.25 <= bounded.sigma_mag <= 0.4
+    assert free.params["bump_ratio"] > 0.3
+    assert bounded.peak_mag_err < 0.5 * free.peak_mag_err
+    assert abs(bounded.peak_mag - MC) < 3 * bounded.peak_mag_err
 
 
 # ---------------------------------------------------------------------------------------------------

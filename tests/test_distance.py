@@ -154,3 +154,62 @@ def test_lf_fit_finds_the_bump_where_the_population_model_puts_it():
     assert 0.05 < res.lf.params["bump_ratio"] < 0.4
     old = fit_clump_lf(np.asarray(cat["I"]))          # the fixed 0.5-1.0 mag range
     assert not old.converged or old.params["bump_ratio"] < 0.02
+
+
+def _reddened_i_mock(seed, ebv_sd):
+    obs = ObservationSpec(distance_modulus=12.0, ebv=0.3, ebv_sd=ebv_sd, depth={"I": 20.0})
+    return make_mock(POP, bands=("I",), rng=np.random.default_rng(seed), n_hb=3000, obs=obs)
+
+
+def test_differential_reddening_spread_is_a_nuisance_of_the_clump_lf():
+    # Injected truth: DM 12.0, E(B-V) 0.3 with a star-to-star spread of 0.2 mag (A_I spread = R_I x 0.2 =
+    # 1.71 x 0.2 = 0.34 mag, R_I the blackbody-weighted F99 ratio at ~4,700 K).  Measured on this mock: without
+    # the spread the LF fit splits the widened clump into a clump and an RGB "bump" of 60 % of it (the bound)
+    # and returns DM 11.879 +- 0.05 (2.4 sigma short); with the spread as a nuisance (half-normal prior of
+    # scale 0.2) DM 11.970 +- 0.05 and a spread of 0.166 mag (the mock clips E(B-V) at 0, which narrows its
+    # spread of 0.2 to ~0.18).
+    t = _reddened_i_mock(4, 0.2)
+    mag, err = np.asarray(t["I"]), np.asarray(t["I_err"])
+    plain = measure_distance(mag, POP, "I", ebv=0.3, mag_err=err)
+    nuis = measure_distance(mag, POP, "I", ebv=0.3, mag_err=err, ebv_spread_sd=0.2)
+    half = 0.5 * (nuis.distance_modulus["hi"] - nuis.distance_modulus["lo"])
+    assert abs(nuis.distance_modulus["median"] - 12.0) < 1.5 * half
+    assert abs(nuis.distance_modulus["median"] - 12.0) < abs(plain.distance_modulus["median"] - 12.0) - 0.05
+    sp = nuis.ebv_spread
+    assert 0.1 < sp["median"] < 0.25 and sp["lo"] <= sp["median"] <= sp["hi"]
+    assert plain.ebv_spread is None
+
+
+def test_differential_reddening_nuisance_without_spread_keeps_the_distance():
+    # No injected spread: the nuisance (prior scale 0.1) finds a spread near 0 and the distance of the plain fit.
+    t = _reddened_i_mock(3, 0.0)
+    mag, err = np.asarray(t["I"]), np.asarray(t["I_err"])
+    plain = measure_distance(mag, POP, "I", ebv=0.3, mag_err=err)
+    nuis = measure_distance(mag, POP, "I", ebv=0.3, mag_err=err, ebv_spread_sd=0.1)
+    assert nuis.ebv_spread["median"] < 0.03
+    assert nuis.distance_modulus["median"] == pytest.approx(plain.distance_modulus["median"], abs=0.01)
+    assert abs(nuis.distance_modulus["median"] - 12.0) < 0.05
+
+
+@pytest.mark.parametrize("value", ["-0.1", "nan", "2"])
+def test_cli_bad_ebv_spread_is_one_line(tmp_path, value):
+    # bad input: a one-line error and exit 2 before any fitting (owner's rule)
+    t = _field(5)
+    t.write(tmp_path / "f.ecsv")
+    proc = subprocess.run([sys.executable, "-m", "hbmodel", "distance", str(tmp_path / "f.ecsv"), "--band", "Ks",
+                           "--feh", "0", "--age", "4", "--ebv-spread", value], capture_output=True, text=True)
+    assert proc.returncode == 2, proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1 and "ebv-spread" in proc.stderr
+
+
+def test_cli_ebv_spread_reported(tmp_path):
+    # the spread's posterior reaches the JSON result; no injected spread -> a small spread (< 0.03 mag)
+    t = _field(5)
+    t.write(tmp_path / "f.ecsv")
+    proc = subprocess.run([sys.executable, "-m", "hbmodel", "distance", str(tmp_path / "f.ecsv"), "--band", "Ks",
+                           "--feh", "0", "--age", "4", "--ebv-spread", "0.05", "--json"],
+                          capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    d = json.loads(proc.stdout)
+    assert d["ebv_spread"]["prior_scale"] == 0.05 and d["ebv_spread"]["median"] < 0.03
+    assert abs(d["distance_modulus"]["median"] - 14.5) < 0.06

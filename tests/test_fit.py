@@ -283,6 +283,37 @@ def test_surrogate_hb_nodes_follow_the_population_physics():
     assert np.max(np.abs(cdf(ref, st.weight) - cdf(mag, w))) < 0.02
 
 
+def test_surrogate_rgb_carries_each_stars_own_extinction_in_gaia_bands():
+    # Broad Gaia G: A_G/E(B-V) depends on the star's temperature (Gaia Collaboration, Babusiaux et al. 2018,
+    # A&A 616, A10, eq. 1: k_G = A_G/A_0 falls with BP-RP - from memory; tests/test_extinction.py checks the
+    # ratio itself).  The mock reddens each giant by its own ratio; the fit's shifts use one ratio, so the
+    # surrogate nodes carry the rest at the prior-mean E(B-V).  Behaviour check against the mock (no outside
+    # source): with the offsets the reddened RGB ridge of G,RP at E(B-V) = 0.3 is the mock's to < 1 mmag;
+    # with one ratio at the reference 4,600 K for all giants it is off by 0.014 mag (median) and up to 0.05.
+    from hbmodel.photometry.extinction import extinction_ratio
+    from hbmodel.inference.likelihood import _extinction_offsets, _rgb_nodes
+    pop = Population(0.0, 4.0, mass_loss=MassLoss.from_eta(0.3, 0.03))
+    ebv, dm, bands = 0.3, 10.0, ("G", "RP")
+    cat = make_mock(pop, bands=bands, rng=np.random.default_rng(1), n_hb=300,
+                    obs=ObservationSpec(distance_modulus=dm, ebv=ebv))
+    rgb = np.asarray(cat["phase"]) == "rgb"
+    g = np.asarray(cat["G_true"], float)[rgb]
+    col = g - np.asarray(cat["RP_true"], float)[rgb]
+    r1, r2 = (float(extinction_ratio(b, 4600.0)) for b in bands)
+    rc, rm, _, rt = _rgb_nodes(pop, bands, 512)
+
+    def offsets(ext):
+        oc, om = _extinction_offsets(rt, bands, ext)
+        mc, mm = rc + oc + (r1 - r2) * ebv, rm + om + dm + r1 * ebv
+        o = np.argsort(mm)
+        sel = (g > mm.min()) & (g < mm.max())
+        return np.abs(col[sel] - np.interp(g[sel], mm[o], mc[o]))
+    with_t = offsets((ebv, 3.1, "F99", r1, r2))
+    one_ratio = offsets(None)
+    assert with_t.size > 500 and np.max(with_t) < 0.001
+    assert np.median(one_ratio) > 0.01
+
+
 @pytest.mark.parametrize("case", ["millimag", "flux_over_error"])
 def test_errors_in_the_wrong_unit_are_refused(tmp_path, case, capsys):
     # Behaviour (issue case): errors quoted in millimag (x1000) or a Gaia-style flux-over-error column
@@ -518,6 +549,13 @@ def test_issue_differential_reddening_case(bands):
     # E(B-V) spread of 0.02 mag, fitted with --ebv-sd 0.02.  Before: dM 0.457 +- 0.007 (V, I), 0.133 with the
     # mass-loss spread at its bound (G, RP).  Now the interval holds the truth within 2.5 sigma and the
     # mass-loss spread stays off its prior bound (0.08).
+    # G, RP also needs each star's own extinction: A_G/E(B-V) falls from 2.37 at 5,000 K to 2.24 at 4,200 K
+    # (blackbody-weighted F99; Gaia Collaboration, Babusiaux et al. 2018, A&A 616, A10, eq. 1: k_G falls with
+    # BP-RP - from memory), 0.01 mag of colour between the clump and the upper RGB at E(B-V) = 0.1, as large
+    # as the errors.  With one ratio at 5,000 K for all stars (measured, emcee): dM 0.111 [0.093, 0.129],
+    # spread 0.0176 (the colour spread along a too-steep vector), posterior-predictive p = 0.000 ("poor fit")
+    # with and without the spread; with the temperature-dependent nodes: dM 0.088 [0.070, 0.106], spread
+    # 0.0186, p = 0.59 (Laplace: 0.087 [0.070, 0.104], p = 1.0).
     pop = Population(0.0, 4.0, mass_loss=MassLoss.from_eta(0.3, 0.03))
     depth = {bands[0]: 20.0, bands[1]: 19.0}
     cat = make_mock(pop, bands=bands, rng=np.random.default_rng(21), n_hb=1500,
@@ -531,3 +569,4 @@ def test_issue_differential_reddening_case(bands):
     assert abs(s["median"] - truth) < 2.5 * 0.5 * (s["hi"] - s["lo"]), (s, truth)
     assert r["mass_loss_sd"]["hi"] < 0.06
     assert abs(r["ebv_spread"]["median"] - 0.02) < 0.004
+    assert r["goodness_of_fit"]["p_value"] > 0.01 and not r["warnings"], r["warnings"]

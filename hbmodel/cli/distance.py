@@ -32,7 +32,10 @@ def add_arguments(p):
     g.add_argument("--eta", type=float, default=0.3, help="Reimers eta (default 0.3)")
     r = p.add_argument_group("reddening")
     r.add_argument("--ebv", type=float, default=None, help="E(B-V) (default 0 unless --reddening-from-colour)")
-    r.add_argument("--ebv-sd", type=float, default=0.0)
+    r.add_argument("--ebv-sd", type=float, default=0.0, help="uncertainty of the mean E(B-V)")
+    r.add_argument("--ebv-spread", type=float, default=0.0, metavar="SD",
+                   help="differential reddening: scale of the half-normal prior of the star-to-star E(B-V) "
+                        "spread, a nuisance of the clump LF fit (default 0: none)")
     r.add_argument("--reddening-from-colour", "--reddening-from-color", dest="reddening_from_colour",
                    action=RenamedOption, flag=True, help="derive E(B-V) from the clump colour")
     r.add_argument("--rv", type=float, default=3.1)
@@ -106,6 +109,8 @@ def run(args):
         raise ValueError("--reddening-from-colour needs --colour")
     if args.ebv is not None and args.ebv < 0:
         raise ValueError("E(B-V) must be non-negative")
+    if not (np.isfinite(args.ebv_spread) and 0 <= args.ebv_spread <= 1):
+        raise ValueError("--ebv-spread must be an E(B-V) spread scale between 0 and 1 mag")
     from hbmodel.core.limits import catalog_task_estimate, check_budget
     check_budget(catalog_task_estimate("distance", args.catalog, out=args.out), max_memory=args.max_memory,
                  max_disk=args.max_disk)
@@ -128,7 +133,7 @@ def run(args):
     cm = {b: np.asarray(t[b], float) for b in set(needed)} if ebv is None else None
     res = measure_distance(mag, pop, band, colour_mags=cm, colour=colour, ebv=ebv, ebv_sd=args.ebv_sd,
                            rv=args.rv, law=args.extinction_law, population_sd_mag=population_sd(args, band),
-                           mag_range=region, mag_err=err)
+                           mag_range=region, mag_err=err, ebv_spread_sd=args.ebv_spread)
     from hbmodel.outputs.reports import distance_error_budget
     d = res.to_dict()
     d["n_rows_dropped_missing"] = n_dropped + res.n_dropped
@@ -160,6 +165,10 @@ def run(args):
         print(f"model clump M_{args.band} = {format_value(res.clump_absmag, res.clump_absmag_err)} mag "
               f"(population correction {res.population_correction:+.3f} mag vs the solar-neighbourhood clump)")
         print(f"E(B-V) = {format_value(res.ebv, res.ebv_err)} mag, A_{args.band} = {res.extinction_mag:.3f} mag")
+        if res.ebv_spread is not None:
+            sp = res.ebv_spread
+            print(f"star-to-star E(B-V) spread {sp['median']:.3f} [{sp['lo']:.3f}, {sp['hi']:.3f}] mag "
+                  f"(half-normal prior of scale {sp['prior_scale']:g})")
         print(f"distance modulus {format_value(dm['median'], dm['hi'] - dm['median'], dm['median'] - dm['lo'])} "
               f"mag (stat {eb['statistical']:.3f}, sys {eb['systematic']:.3f} mag); "
               f"distance {format_value(dk['median'], dk['hi'] - dk['median'], dk['median'] - dk['lo'])} kpc")

@@ -210,7 +210,8 @@ class _Model:
         return float(-np.sum(np.log(dens))), grad
 
 
-def _build_model(lo: float, hi: float, comps: tuple[str, ...], background: str, bump_range=None) -> _Model:
+def _build_model(lo: float, hi: float, comps: tuple[str, ...], background: str, bump_range=None,
+                 bounds=None) -> _Model:
     pr = _priors()
     if bump_range is not None:
         pr["bump_offset_min_mag"], pr["bump_offset_max_mag"] = (float(x) for x in bump_range)
@@ -230,6 +231,9 @@ def _build_model(lo: float, hi: float, comps: tuple[str, ...], background: str, 
     if has_agb:
         names += ["agb_offset", "agb_ratio"]
         low += [pr["agb_offset_min_mag"], 0.0]; up += [pr["agb_offset_max_mag"], pr["agb_ratio_max"]]
+    for name, (b_lo, b_hi) in (bounds or {}).items():  # a caller's own bounds of named parameters
+        if name in names:
+            low[names.index(name)], up[names.index(name)] = float(b_lo), float(b_hi)
     return _Model(tuple(names), np.array(low, float), np.array(up, float), float(lo), float(hi),
                   has_bg, background, has_bump, has_agb)
 
@@ -408,7 +412,8 @@ class ClumpLFResult:
 # public API
 # --------------------------------------------------------------------------------------------------
 def fit_clump_lf(mag, *, mag_range=None, components=("clump", "rgb", "bump"), n_boot: int = 0, rng=None,
-                 peak_guess=None, background: str = "exponential", bump_offset_range=None) -> ClumpLFResult:
+                 peak_guess=None, background: str = "exponential", bump_offset_range=None,
+                 bounds=None) -> ClumpLFResult:
     """Fit the red-clump luminosity function of a catalogue by unbinned maximum likelihood.
 
     Parameters
@@ -425,6 +430,10 @@ def fit_clump_lf(mag, *, mag_range=None, components=("clump", "rgb", "bump"), n_
     bump_offset_range : (lo, hi) bounds of the RGB bump's offset below the clump (mag), replacing the
         table's 0.5-1.0 mag: e.g. the population model's own bump offset +- a margin
         (:func:`hbmodel.inference.clump_distance.measure_distance` does so).
+    bounds : {parameter name: (lo, hi)} replacing the table's bounds of those parameters, e.g. ``sigma_mag``
+        from the population model's clump width convolved with a differential-reddening spread and
+        ``bump_ratio`` about the model's own (:func:`hbmodel.inference.clump_distance.measure_distance` with
+        ``ebv_spread_sd``).
 
     The method and its validity range are described in the module docstring.  Raises ``ValueError``
     for NaNs, too few stars in the window or when no significant clump is found.
@@ -433,16 +442,21 @@ def fit_clump_lf(mag, *, mag_range=None, components=("clump", "rgb", "bump"), n_
     # loaded machine), so the fit runs with one BLAS thread (restored on exit).
     with threadpool_limits(limits=1, user_api="blas"):
         return _fit_clump_lf(mag, mag_range=mag_range, components=components, n_boot=n_boot, rng=rng,
-                             peak_guess=peak_guess, background=background, bump_offset_range=bump_offset_range)
+                             peak_guess=peak_guess, background=background, bump_offset_range=bump_offset_range,
+                             bounds=bounds)
 
 
 def _fit_clump_lf(mag, *, mag_range, components, n_boot, rng, peak_guess, background,
-                  bump_offset_range=None) -> ClumpLFResult:
+                  bump_offset_range=None, bounds=None) -> ClumpLFResult:
     pr = _priors()
     if bump_offset_range is not None:
         lo_b, hi_b = (float(x) for x in bump_offset_range)
         if not (np.isfinite(lo_b) and np.isfinite(hi_b) and 0.0 < lo_b < hi_b):
             raise ValueError(f"bump_offset_range must be 0 < lo < hi mag (got {bump_offset_range})")
+    for name, rng_b in (bounds or {}).items():
+        lo_s, hi_s = (float(x) for x in rng_b)
+        if not (np.isfinite(lo_s) and np.isfinite(hi_s) and lo_s < hi_s) or (name == "sigma_mag" and lo_s <= 0):
+            raise ValueError(f"bounds of {name} must be finite with lo < hi (got {rng_b})")
     try:
         m_all = None if isinstance(mag, str) else np.asarray(mag, dtype=float).ravel()
     except (TypeError, ValueError):
@@ -500,7 +514,7 @@ def _fit_clump_lf(mag, *, mag_range, components, n_boot, rng, peak_guess, backgr
     if not lo < peak_guess < hi:
         raise ValueError(f"peak_guess {peak_guess:g} lies outside the fit window [{lo:g}, {hi:g}]")
 
-    model = _build_model(lo, hi, comps, background, bump_offset_range)
+    model = _build_model(lo, hi, comps, background, bump_offset_range, bounds)
     res = _minimise(model, m, _start_points(model, m, peak_guess, n_keep=3))
     theta = np.clip(res.x, model.lower, model.upper)
     cov, hess_ok = _covariance(model, m, theta)
@@ -521,7 +535,8 @@ def _fit_clump_lf(mag, *, mag_range, components, n_boot, rng, peak_guess, backgr
         weak = False
     margin = pr["edge_margin_sigma"] * p["sigma_mag"]
     at_edge = not (lo + margin < p["peak_mag"] < hi - margin)
-    wide = p["sigma_mag"] >= model.upper[1] * (1 - 1e-4)
+    # on a caller's own width bounds (a differential-reddening node) the upper bound is no sign of a non-clump
+    wide = "sigma_mag" not in (bounds or {}) and p["sigma_mag"] >= model.upper[1] * (1 - 1e-4)
     if weak or at_edge or wide:
         raise ValueError("no red-clump peak found in the catalogue (clump fraction consistent with zero, "
                          "peak at the window edge or clump too wide)")

@@ -261,9 +261,27 @@ def _intrinsic_nodes(sub_pop, sub, masses, bands, n_tau, n_agb):
 def _rgb_nodes(pop, bands, n_rgb):
     st = pop.model_stars(phases=("rgb",), n_rgb=n_rgb)
     if len(st) == 0:
-        return np.zeros(0), np.zeros(0), np.zeros(0)
+        return np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0)
     mags = st.absolute_magnitudes(bands)
-    return mags[bands[0]] - mags[bands[1]], mags[bands[0]], st.weight
+    return mags[bands[0]] - mags[bands[1]], mags[bands[0]], st.weight, st.teff_k
+
+
+def _extinction_offsets(teff_k, bands, extinction):
+    """(colour, magnitude) offsets of nodes of temperature ``teff_k`` from the temperature dependence of the
+    extinction: ``extinction = (ebv, rv, law, r1, r2)`` with r1, r2 the reference ratios A/E(B-V) of the two
+    bands that the fit's shifts use.  A star of temperature T is reddened by E (R1(T) - R2(T)) and dimmed by
+    E R1(T) (as the mock draws it); the shifts apply E (r1 - r2) and E r1, so the nodes carry the rest at the
+    prior mean E.  Broad bands need it: A_G/E(B-V) falls from 2.37 at 5,000 K to 2.24 at 4,200 K (blackbody-
+    weighted law, :func:`hbmodel.photometry.extinction.extinction_ratio`), a 0.01 mag colour difference between the
+    clump and the upper RGB at E(B-V) = 0.1, against 0.01 mag photometric errors."""
+    if extinction is None or not extinction[0] > 0 or np.size(teff_k) == 0:
+        return 0.0, 0.0
+    from hbmodel.photometry.extinction import extinction_ratio
+    ebv, rv, law, r1, r2 = extinction
+    t = np.clip(np.asarray(teff_k, float), 3000.0, 50000.0)
+    a1 = extinction_ratio(bands[0], t, rv, law)
+    a2 = extinction_ratio(bands[1], t, rv, law)
+    return ebv * ((a1 - a2) - (r1 - r2)), ebv * (a1 - r1)
 
 
 def _deposit(col, mag, w, kidx, n_img, col_edges, mag_edges, err_model, bands, shift_c, shift_m, floor):
@@ -328,17 +346,20 @@ def pixel_for_errors(colour_err) -> float:
 
 def build_surrogate(*, feh, alpha_fe, age_gyr, helium, bands, err_model, col_range, mag_range,
                     shift_c, shift_m, age_sd_gyr=0.0, delta_y_max=0.0, pixel=None, teff_ref_k=None,
-                    cache=True) -> HBSurrogate:
+                    extinction=None, cache=True) -> HBSurrogate:
     """Build (or fetch from the in-process cache) the basis images of a population.
 
     ``col_range``/``mag_range`` are intrinsic (absolute) ranges the images cover; ``shift_c``/``shift_m``
-    the nominal observed-minus-intrinsic shifts used to look up the photometric errors.
+    the nominal observed-minus-intrinsic shifts used to look up the photometric errors.  ``extinction`` =
+    (ebv, rv, law, r1, r2) moves every node by the temperature-dependent part of its extinction
+    (:func:`_extinction_offsets`); None = one extinction ratio per band for all stars.
     """
     c = fit_constants()
     bands = tuple(bands)
     key = (float(feh), float(alpha_fe), float(age_gyr), helium, bands, err_model.key(),
            tuple(np.round(col_range, 4)), tuple(np.round(mag_range, 4)), round(shift_c, 4), round(shift_m, 4),
-           round(float(age_sd_gyr), 4), round(float(delta_y_max), 4), pixel)
+           round(float(age_sd_gyr), 4), round(float(delta_y_max), 4), pixel,
+           None if extinction is None else tuple(extinction))
     if cache and key in _CACHE:
         return _CACHE[key]
     if pixel is None:
@@ -388,13 +409,17 @@ def build_surrogate(*, feh, alpha_fe, age_gyr, helium, bands, err_model, col_ran
             img = np.zeros((mass_grid.size, nm * nc))
         else:
             col, mag, w, kidx, teff, is_hb = res
+            oc, om = _extinction_offsets(teff, bands, extinction)
+            col, mag = col + oc, mag + om
             if j == 0:
                 teffs.append(teff[is_hb])
                 nodes_c.append(col[is_hb]); nodes_m.append(mag[is_hb]); nodes_w.append(kidx[is_hb])
             img = _deposit(col, mag, w, kidx, mass_grid.size, col_edges, mag_edges, err_model, bands,
                            shift_c, shift_m, floor)
         hb_images.append(np.ascontiguousarray(img, np.float32))
-        rc, rm, rw = _rgb_nodes(p, bands, int(c["n_rgb"]))
+        rc, rm, rw, rt = _rgb_nodes(p, bands, int(c["n_rgb"]))
+        oc, om = _extinction_offsets(rt, bands, extinction)
+        rc, rm = rc + oc, rm + om
         rimg = _deposit(rc, rm, rw, np.zeros(rc.size, int), 1, col_edges, mag_edges, err_model, bands,
                         shift_c, shift_m, floor)[0]
         rgb_images.append(rimg.astype(np.float32))
@@ -415,14 +440,20 @@ def build_surrogate(*, feh, alpha_fe, age_gyr, helium, bands, err_model, col_ran
 
 
 def population_extent(*, feh, alpha_fe, age_gyr, helium, bands):
-    """Intrinsic (colour, mag) extent of the HB + early AGB over all HB masses, and the RGB-base magnitude."""
+    """Intrinsic (colour, mag) extent of the HB + early AGB over all HB masses, the RGB-base magnitude, and a
+    reference temperature for the reddening vector: that of the RGB at the median HB magnitude (own choice:
+    the giants and the clump that fill a fitted region lie near it; 5,000 K when there is no RGB)."""
     pop = Population(feh, age_gyr, alpha_fe=alpha_fe, helium=helium)
     sub = pop.subpopulations[0]
     masses = np.linspace(sub.core_mass_msun + 0.01, sub.tip_mass_msun, 60)
     col, mag, w, kidx, teff, is_hb = _intrinsic_nodes(pop, sub, masses, bands, 24, 12)
     # the RGB base modelled (log L = logl_rgb_min) sets the faintest usable magnitude
-    rc, rm, rw = _rgb_nodes(pop, bands, 512)
-    return col, mag, float(np.max(rm)) if rm.size else np.inf
+    rc, rm, rw, rt = _rgb_nodes(pop, bands, 512)
+    teff_ref = 5000.0
+    if rm.size and np.any(is_hb):
+        order = np.argsort(rm)
+        teff_ref = float(np.interp(np.median(mag[is_hb]), rm[order], rt[order]))
+    return col, mag, (float(np.max(rm)) if rm.size else np.inf), teff_ref
 
 
 # --------------------------------------------------------------------------- likelihood
