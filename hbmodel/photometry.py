@@ -212,7 +212,12 @@ def get_band(name: str) -> Band:
 class BandRelation:
     """A published colour relation of ``tables/band_relations.csv``:
     ``m_band = m_base + c0 + c1 x + c2 x^2`` with ``x = m_xa - m_xb``, valid where
-    ``v_lo <= m_va - m_vb <= v_hi`` and ``Teff <= teff_max_k``."""
+    ``v_lo <= m_va - m_vb <= v_hi`` and ``Teff <= teff_max_k``.
+
+    A relation published in colour pieces (e.g. Sirianni et al. 2005 for ACS/WFC, with separate
+    coefficients blueward and redward of a colour) has one table row per piece; the band's relation is then
+    the first piece with ``v_lo``/``v_hi`` spanning all of them and ``pieces`` holding each row, applied
+    on ``v_lo <= m_va - m_vb < v_hi`` (the last piece closed)."""
 
     band: str
     base: str
@@ -228,10 +233,30 @@ class BandRelation:
     location: str
     obtained: str
     sequence: tuple | None = None   # (x nodes, y nodes): piecewise-linear term in x (band_colour_sequences.csv)
+    pieces: tuple = ()              # the rows of a relation published in colour pieces (else empty)
 
     def validity(self) -> str:
         hot = f", Teff <= {self.teff_max_k:,.0f} K" if self.teff_max_k < TEFF_RANGE_K[1] else ""
         return f"{self.va}-{self.vb} in [{self.v_lo:g}, {self.v_hi:g}] mag{hot}"
+
+    def deps(self) -> tuple[str, ...]:
+        """Every band the relation reads (all pieces)."""
+        rows = self.pieces or (self,)
+        return tuple(dict.fromkeys(b for r in rows for b in (r.base, r.xa, r.xb, r.va, r.vb)))
+
+    def evaluate(self, m: dict):
+        """``m_band`` from the magnitudes ``m`` (band -> array), each star by the piece its colour falls in."""
+        if not self.pieces:
+            x = m[self.xa] - m[self.xb]
+            new = m[self.base] + self.coef[0] + x * (self.coef[1] + self.coef[2] * x)
+            if self.sequence is not None:
+                new = new + np.interp(x, *self.sequence)
+            return new
+        v = m[self.va] - m[self.vb]
+        out = self.pieces[-1].evaluate(m)
+        for p in self.pieces[-2::-1]:
+            out = np.where(v < p.v_hi, p.evaluate(m), out)
+        return out
 
 
 @table_cache
@@ -252,32 +277,61 @@ def _sequences() -> dict[str, tuple]:
     return out
 
 
+def _relation_row(r: dict, band: str, reg: dict) -> BandRelation:
+    """One row of ``band_relations.csv`` as a :class:`BandRelation` in the form ``m_band = m_base + ...``.
+
+    ``form = inverse`` rows hold a published transformation *to* the base band verbatim,
+    ``m_base = m_band - zp + c0 + c1 x + c2 x^2`` (x a colour of the base system, zp the zero point that turns the
+    band's VEGAMAG into the instrumental magnitude the coefficients refer to); they are inverted exactly here
+    (x does not involve the band itself): ``m_band = m_base + (zp - c0) - c1 x - c2 x^2``."""
+    names = [r[k].strip() for k in ("base", "xa", "xb", "va", "vb")]
+    for n in names:
+        if n not in reg:
+            raise ValueError(f"band_relations.csv: relation of {band} uses unknown band {n!r}")
+    seq_name = (r.get("sequence") or "").strip()
+    seq = None
+    if seq_name:
+        if seq_name not in _sequences():
+            raise ValueError(f"band_relations.csv: relation of {band} names unknown sequence {seq_name!r}")
+        seq = _sequences()[seq_name]
+    coef = tuple(float(r[f"c{k}"]) for k in range(3))
+    form = (r.get("form") or "").strip() or "direct"
+    if form == "inverse":
+        if band in (names[1], names[2]) or seq is not None:
+            raise ValueError(f"band_relations.csv: inverse relation of {band} must use a colour of the base system")
+        coef = (float(r["zp"]) - coef[0], -coef[1], -coef[2])
+    elif form != "direct":
+        raise ValueError(f"band_relations.csv: relation of {band} has unknown form {form!r} (direct or inverse)")
+    return BandRelation(band, names[0], names[1], names[2], coef, names[3], names[4],
+                        float(r["v_lo"]), float(r["v_hi"]), float(r["teff_max_k"]),
+                        r["source"].strip(), r["location"].strip(), r["obtained"].strip(), seq)
+
+
 @table_cache
 def _relations() -> dict[str, BandRelation]:
     text = _text("band_relations.csv")
     rows = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     reg = _registry()
-    out = {}
+    by_band: dict[str, list] = {}
     for r in csv.DictReader(io.StringIO("\n".join(rows))):
         band = r["band"].strip()
         if band not in reg or reg[band].colour_source != "relation":
             raise ValueError(f"band_relations.csv: {band!r} is not a relation band of bands.csv")
-        if band in out:
-            raise ValueError(f"band_relations.csv: band {band} has more than one relation")
-        names = [r[k].strip() for k in ("base", "xa", "xb", "va", "vb")]
-        for n in names:
-            if n not in reg:
-                raise ValueError(f"band_relations.csv: relation of {band} uses unknown band {n!r}")
-        seq_name = (r.get("sequence") or "").strip()
-        seq = None
-        if seq_name:
-            if seq_name not in _sequences():
-                raise ValueError(f"band_relations.csv: relation of {band} names unknown sequence {seq_name!r}")
-            seq = _sequences()[seq_name]
-        out[band] = BandRelation(band, names[0], names[1], names[2],
-                                 tuple(float(r[f"c{k}"]) for k in range(3)), names[3], names[4],
-                                 float(r["v_lo"]), float(r["v_hi"]), float(r["teff_max_k"]),
-                                 r["source"].strip(), r["location"].strip(), r["obtained"].strip(), seq)
+        by_band.setdefault(band, []).append(_relation_row(r, band, reg))
+    out = {}
+    for band, rels in by_band.items():
+        if len(rels) == 1:
+            out[band] = rels[0]
+            continue
+        rels.sort(key=lambda q: q.v_lo)
+        first = rels[0]
+        for a, b in zip(rels, rels[1:]):   # colour pieces: same selecting colour and Teff limit, contiguous
+            if (b.va, b.vb, b.teff_max_k) != (first.va, first.vb, first.teff_max_k) or b.v_lo != a.v_hi:
+                raise ValueError(f"band_relations.csv: the rows of {band} must be contiguous pieces in one colour "
+                                 f"({first.va}-{first.vb}) with one Teff limit")
+        out[band] = BandRelation(band, first.base, first.xa, first.xb, first.coef, first.va, first.vb,
+                                 first.v_lo, rels[-1].v_hi, first.teff_max_k, first.source, first.location,
+                                 first.obtained, first.sequence, tuple(rels))
     return out
 
 
@@ -310,7 +364,7 @@ def _relation_closure(names) -> tuple[set, list]:
             raise ValueError(f"band {b} ({band.system}): no published colour relation is tabulated for it yet "
                              f"(tables/band_relations.csv), so its magnitudes are not available; its passband "
                              f"and extinction are")
-        for dep in (r.base, r.xa, r.xb, r.va, r.vb):
+        for dep in r.deps():
             visit(dep)
         order.append(b)
 
@@ -331,11 +385,7 @@ def _apply_relations(m: dict, order: list, teff, check: bool) -> None:
     for _ in range(50):
         delta = 0.0
         for b in order:
-            r = rels[b]
-            x = m[r.xa] - m[r.xb]
-            new = m[r.base] + r.coef[0] + x * (r.coef[1] + r.coef[2] * x)
-            if r.sequence is not None:
-                new = new + np.interp(x, *r.sequence)
+            new = rels[b].evaluate(m)
             if new.size:
                 delta = max(delta, float(np.nanmax(np.abs(new - m[b]), initial=0.0)))
             m[b] = new

@@ -130,7 +130,7 @@ def test_hot_hb_stars_are_refused_in_the_u_band_and_bands_without_a_relation_are
     # a cool M giant beyond Rc-Ic = 1.15 (the range of Jester et al. 2005) is not extrapolated
     with pytest.raises(ValueError, match="Rc-Ic < 1.15"):
         absolute_magnitudes(np.array([3300.0]), 0.5, 0.0, 3.0, ("SDSS_g",))
-    for band in ("ACS_F606W", "UVIS_F336W", "IR_F160W", "LSST_r", "PS1_y", "DECam_Y"):
+    for band in ("UVIS_F606W", "UVIS_F336W", "IR_F160W", "LSST_r", "PS1_y", "DECam_Y"):
         with pytest.raises(ValueError, match="no published colour relation is tabulated"):
             absolute_magnitudes(np.array([4700.0]), 2.5, 0.0, 1.7, (band,))
     # inside the range the grid path agrees with the direct path (< 1e-3 mag, as for the core bands)
@@ -177,9 +177,9 @@ def test_predict_gives_clump_magnitudes_in_survey_bands(capsys):
     assert 0.0 < clump["Ks"] - clump["WISE_W1"] < 0.08
 
 
-def test_predict_in_an_hst_band_is_a_one_line_refusal(capsys):
+def test_predict_in_a_wfc3_band_is_a_one_line_refusal(capsys):
     from hbmodel.cli import main
-    rc = main(["predict", "--feh", "-0.1", "--age", "4", "--eta", "0.3", "--bands", "ACS_F606W,ACS_F814W"])
+    rc = main(["predict", "--feh", "-0.1", "--age", "4", "--eta", "0.3", "--bands", "UVIS_F606W,UVIS_F814W"])
     err = capsys.readouterr().err
     assert rc not in (0, None) and "no published colour relation" in err and "Traceback" not in err
     assert len(err.strip().splitlines()) == 1
