@@ -712,7 +712,9 @@ class FixedMetallicityPhotometry:
     blend weight between the tracks, so a star's bolometric correction is
     ``BC_dwarf + w_g (BC_giant - BC_dwarf)`` exactly; only the linear interpolation in log Teff on the
     6001-point grid (spacing 2e-4 dex) differs from :func:`absolute_magnitudes`, by < 1e-4 mag.  The
-    Gaia bands, non-linear in V - I_C, are mapped from the blended V - I_C as in :func:`colours_v`.
+    Gaia bands, non-linear in V - I_C, are mapped from the blended V - I_C as in :func:`colours_v`, and
+    the relation bands (HST, surveys; non-linear in colour) from the blended magnitudes of the bands their
+    published relations read, with the same refusal outside a relation's validity.
     ``extra`` adds Teff-only columns (name -> function of Teff in K) on the same grid, e.g.
     extinction ratios, so they share one look-up.
     """
@@ -725,11 +727,16 @@ class FixedMetallicityPhotometry:
         tg, _rg, _gg, _names, _t = _engine()
         logt = tg.lo + tg.step * np.arange(tg.n)
         teff = 10.0 ** logt
-        need = set(self.bands) | ({"I"} if set(self.bands) & set(self._GAIA) else set())
+        # relation bands (HST, surveys) are not blended themselves: their published relations are non-linear in
+        # colour (quadratic terms, colour pieces), so they are applied to the blended magnitudes of the bands
+        # they read, exactly as in colours_v (a star outside a relation's validity is refused there)
+        rel = [b for b in self.bands if _is_relation(b)]
+        core_need, self._rel_order = _relation_closure(rel) if rel else (set(), [])
+        self._core = tuple(dict.fromkeys([b for b in self.bands if not _is_relation(b)] + sorted(core_need)))
+        need = set(self._core) | ({"I"} if set(self._core) & set(self._GAIA) else set())
         cols = {}
         for key, logg in (("d", _DWARF_LOGG), ("g", _GIANT_LOGG)):
-            v = colours_v(teff, np.full_like(teff, logg), np.full_like(teff, self.feh), only=tuple(need),
-                          check=False)   # NaN outside a relation band's validity: refused at look-up
+            v = colours_v(teff, np.full_like(teff, logg), np.full_like(teff, self.feh), only=tuple(need))
             cols[f"bcv_{key}"] = v["_bc_v"]
             for b in need:
                 if b not in self._GAIA:
@@ -758,20 +765,6 @@ class FixedMetallicityPhotometry:
         g += d
         return g
 
-    def _relation_bc(self, name, i, f, wg, logteff):
-        """BC of a relation band, refusing stars outside its published relation (NaN on the grid)."""
-        d = self.grid.get(f"{name}_d", i, f)
-        g = self.grid.get(f"{name}_g", i, f)
-        bc = np.where(wg >= 1.0, g, np.where(wg <= 0.0, d, d + wg * (g - d)))
-        bad = np.isnan(bc)
-        if bad.any():
-            r = _relations()[name]
-            t = 10.0 ** np.asarray(logteff, float)[bad] if np.ndim(logteff) else np.array([10.0 ** float(logteff)])
-            raise ValueError(f"band {name}: {int(bad.sum())} star(s) (Teff {t.min():,.0f}-{t.max():,.0f} K) outside "
-                             f"the published relation ({r.source}, {r.location}: valid for {r.validity()}); "
-                             f"not extrapolated")
-        return bc
-
     def absolute_magnitudes(self, logteff, logg, logl, located=None) -> dict[str, np.ndarray]:
         """``M_band`` for every band; ``located`` may pass a precomputed ``locate(logteff)``.
 
@@ -783,17 +776,21 @@ class FixedMetallicityPhotometry:
         wg = self.gravity_weight(logg)
         mbol = M_BOL_SUN - 2.5 * np.asarray(logl, float)
         out = {}
-        if set(self.bands) & set(self._GAIA):
+        if set(self._core) & set(self._GAIA):
             _tg, _rg, gg, _names, _t = _engine()
             ig, fg = gg.locate(self._bc("vi", i, f, wg))
             bcv = self._bc("bcv", i, f, wg)
-        for b in self.bands:
+        for b in self._core:
             if b in self._GAIA:
                 out[b] = mbol - (bcv + gg.get(b, ig, fg))
-            elif _is_relation(b):
-                out[b] = mbol - self._relation_bc(b, i, f, wg, logteff)
             else:
                 m = self._bc(b, i, f, wg)
                 np.subtract(mbol, m, out=m)
                 out[b] = m
-        return out
+        if self._rel_order:
+            shape = np.shape(out[self._core[0]])
+            flat = {b: np.ravel(v) for b, v in out.items()}
+            _apply_relations(flat, self._rel_order, np.ravel(np.broadcast_to(10.0 ** np.asarray(logteff, float),
+                                                                                shape)), True)
+            out.update({b: flat[b].reshape(shape) for b in self._rel_order})
+        return {b: out[b] for b in self.bands}
