@@ -48,9 +48,11 @@ Construction (each step names its published source; see the table headers):
    al. 2005, AJ 130, 873, Table 1), DECam from SDSS (DES DR2, Abbott et al. 2021), PS1 from SDSS (Tonry
    et al. 2012, ApJ 750, 99, Table 6; memory), WISE from the Pecaut & Mamajek 2013 dwarf sequence, HST
    ACS/WFC F435W/F606W/F814W from B, V, I by inverting the synthetic WFC->UBVRI transformations of Sirianni
-   et al. 2005, PASP 117, 1049 (colour pieces, VEGAMAG).
+   et al. 2005, PASP 117, 1049 (colour pieces, VEGAMAG), LSST griz from DECam griz (Rubin technical note
+   RTN-099, Table 1).
    Each relation is applied only inside its published colour range (and Teff limit): outside, or for a
-   band with no tabulated relation (WFC3, LSST for now), a ``ValueError`` -- never an extrapolation.
+   band with no tabulated relation (WFC3, LSST u/y, PS1 y, DECam Y for now), a ``ValueError`` -- never an
+   extrapolation.
    These bands are not in the default set ``BAND_NAMES``; ``ALL_BAND_NAMES`` lists every band.
 6. **Solar reference** on the IAU 2015 bolometric scale (Resolution B2,
    Prsa et al. 2016, AJ 152, 41): ``M_BOL_SUN = 4.74``.

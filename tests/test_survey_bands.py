@@ -111,6 +111,22 @@ def test_decam_follows_des_dr2_and_ps1_solves_its_own_colour():
     np.testing.assert_allclose(m["SDSS_i"] - m["PS1_i"], -0.005 + 0.011 * x + 0.010 * x * x, atol=1e-8)
 
 
+def test_lsst_griz_follow_rtn_099_table_1_inside_its_colour_ranges():
+    # Rubin technical note RTN-099, Table 1 (DES -> LSST, synthetic LSSTCam, v_2025_08_22):
+    # g = g_DES + 0.016 (g-i) - 0.003 (g-i)^2 + 0.006; r = r_DES + 0.185 (r-i) - 0.015 (r-i)^2 + 0.010;
+    # i = i_DES + 0.150 (r-i) - 0.003 (r-i)^2 - 0.009; z = z_DES + 0.270 (i-z) + 0.036 (i-z)^2 - 0.003
+    teff, logg, feh = GIANT
+    bands = ("DECam_g", "DECam_r", "DECam_i", "DECam_z", "LSST_g", "LSST_r", "LSST_i", "LSST_z")
+    m = absolute_magnitudes(np.append(teff, 8000.0), 2.5, feh, 1.7, bands)
+    gi, ri, iz = (m["DECam_g"] - m["DECam_i"], m["DECam_r"] - m["DECam_i"], m["DECam_i"] - m["DECam_z"])
+    np.testing.assert_allclose(m["LSST_g"], m["DECam_g"] + 0.016 * gi - 0.003 * gi ** 2 + 0.006, atol=1e-9)
+    np.testing.assert_allclose(m["LSST_r"], m["DECam_r"] + 0.185 * ri - 0.015 * ri ** 2 + 0.010, atol=1e-9)
+    np.testing.assert_allclose(m["LSST_i"], m["DECam_i"] + 0.150 * ri - 0.003 * ri ** 2 - 0.009, atol=1e-9)
+    np.testing.assert_allclose(m["LSST_z"], m["DECam_z"] + 0.270 * iz + 0.036 * iz ** 2 - 0.003, atol=1e-9)
+    # LSST r and i are bluer than DES r and i (pivots 0.621/0.755 vs 0.642/0.781 micron): a red giant is fainter
+    assert np.all((m["LSST_r"] - m["DECam_r"])[:3] > 0.03) and np.all((m["LSST_i"] - m["DECam_i"])[:3] > 0.0)
+
+
 def test_wise_w1_follows_the_pecaut_mamajek_sequence():
     # Pecaut & Mamajek 2013 (online table 2019.3.22): K3.5V has V-Ks = 2.582 and Ks-W1 = 0.036
     t = np.array([4000.0, 4500.0, 5000.0, 5500.0])
@@ -219,7 +235,7 @@ def test_hot_hb_stars_are_refused_in_the_u_band_and_bands_without_a_relation_are
     # a cool M giant beyond Rc-Ic = 1.15 (the range of Jester et al. 2005) is not extrapolated
     with pytest.raises(ValueError, match="Rc-Ic < 1.15"):
         absolute_magnitudes(np.array([3300.0]), 0.5, 0.0, 3.0, ("SDSS_g",))
-    for band in ("UVIS_F606W", "UVIS_F336W", "IR_F160W", "LSST_r", "PS1_y", "DECam_Y"):
+    for band in ("UVIS_F606W", "UVIS_F336W", "IR_F160W", "LSST_u", "LSST_y", "PS1_y", "DECam_Y"):
         with pytest.raises(ValueError, match="no published colour relation is tabulated"):
             absolute_magnitudes(np.array([4700.0]), 2.5, 0.0, 1.7, (band,))
     # inside the range the grid path agrees with the direct path (< 1e-3 mag, as for the core bands)
