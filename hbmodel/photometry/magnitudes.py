@@ -46,9 +46,13 @@ Construction (each step names its published source; see the table headers):
    ``m = m_base + c0 + c1 x + c2 x^2 (+ a tabulated sequence term)``, x a colour of bands computed
    before (or of the band's own system, solved by fixed-point iteration): SDSS from UBVRcIc (Jester et
    al. 2005, AJ 130, 873, Table 1), DECam from SDSS (DES DR2, Abbott et al. 2021), PS1 from SDSS (Tonry
-   et al. 2012, ApJ 750, 99, Table 6; memory), WISE from the Pecaut & Mamajek 2013 dwarf sequence.
+   et al. 2012, ApJ 750, 99, Table 6; memory), WISE from the Pecaut & Mamajek 2013 dwarf sequence, HST
+   ACS/WFC F435W/F606W/F814W from B, V, I by inverting the synthetic WFC->UBVRI transformations of Sirianni
+   et al. 2005, PASP 117, 1049 (colour pieces, VEGAMAG), LSST griz from DECam griz (Rubin technical note
+   RTN-099, Table 1).
    Each relation is applied only inside its published colour range (and Teff limit): outside, or for a
-   band with no tabulated relation (HST, LSST for now), a ``ValueError`` -- never an extrapolation.
+   band with no tabulated relation (WFC3, LSST u/y, PS1 y, DECam Y for now), a ``ValueError`` -- never an
+   extrapolation.
    These bands are not in the default set ``BAND_NAMES``; ``ALL_BAND_NAMES`` lists every band.
 6. **Solar reference** on the IAU 2015 bolometric scale (Resolution B2,
    Prsa et al. 2016, AJ 152, 41): ``M_BOL_SUN = 4.74``.
@@ -212,7 +216,12 @@ def get_band(name: str) -> Band:
 class BandRelation:
     """A published colour relation of ``tables/band_relations.csv``:
     ``m_band = m_base + c0 + c1 x + c2 x^2`` with ``x = m_xa - m_xb``, valid where
-    ``v_lo <= m_va - m_vb <= v_hi`` and ``Teff <= teff_max_k``."""
+    ``v_lo <= m_va - m_vb <= v_hi`` and ``Teff <= teff_max_k``.
+
+    A relation published in colour pieces (e.g. Sirianni et al. 2005 for ACS/WFC, with separate
+    coefficients blueward and redward of a colour) has one table row per piece; the band's relation is then
+    the first piece with ``v_lo``/``v_hi`` spanning all of them and ``pieces`` holding each row, applied
+    on ``v_lo <= m_va - m_vb < v_hi`` (the last piece closed)."""
 
     band: str
     base: str
@@ -228,10 +237,30 @@ class BandRelation:
     location: str
     obtained: str
     sequence: tuple | None = None   # (x nodes, y nodes): piecewise-linear term in x (band_colour_sequences.csv)
+    pieces: tuple = ()              # the rows of a relation published in colour pieces (else empty)
 
     def validity(self) -> str:
         hot = f", Teff <= {self.teff_max_k:,.0f} K" if self.teff_max_k < TEFF_RANGE_K[1] else ""
         return f"{self.va}-{self.vb} in [{self.v_lo:g}, {self.v_hi:g}] mag{hot}"
+
+    def deps(self) -> tuple[str, ...]:
+        """Every band the relation reads (all pieces)."""
+        rows = self.pieces or (self,)
+        return tuple(dict.fromkeys(b for r in rows for b in (r.base, r.xa, r.xb, r.va, r.vb)))
+
+    def evaluate(self, m: dict):
+        """``m_band`` from the magnitudes ``m`` (band -> array), each star by the piece its colour falls in."""
+        if not self.pieces:
+            x = m[self.xa] - m[self.xb]
+            new = m[self.base] + self.coef[0] + x * (self.coef[1] + self.coef[2] * x)
+            if self.sequence is not None:
+                new = new + np.interp(x, *self.sequence)
+            return new
+        v = m[self.va] - m[self.vb]
+        out = self.pieces[-1].evaluate(m)
+        for p in self.pieces[-2::-1]:
+            out = np.where(v < p.v_hi, p.evaluate(m), out)
+        return out
 
 
 @table_cache
@@ -252,32 +281,61 @@ def _sequences() -> dict[str, tuple]:
     return out
 
 
+def _relation_row(r: dict, band: str, reg: dict) -> BandRelation:
+    """One row of ``band_relations.csv`` as a :class:`BandRelation` in the form ``m_band = m_base + ...``.
+
+    ``form = inverse`` rows hold a published transformation *to* the base band verbatim,
+    ``m_base = m_band - zp + c0 + c1 x + c2 x^2`` (x a colour of the base system, zp the zero point that turns the
+    band's VEGAMAG into the instrumental magnitude the coefficients refer to); they are inverted exactly here
+    (x does not involve the band itself): ``m_band = m_base + (zp - c0) - c1 x - c2 x^2``."""
+    names = [r[k].strip() for k in ("base", "xa", "xb", "va", "vb")]
+    for n in names:
+        if n not in reg:
+            raise ValueError(f"band_relations.csv: relation of {band} uses unknown band {n!r}")
+    seq_name = (r.get("sequence") or "").strip()
+    seq = None
+    if seq_name:
+        if seq_name not in _sequences():
+            raise ValueError(f"band_relations.csv: relation of {band} names unknown sequence {seq_name!r}")
+        seq = _sequences()[seq_name]
+    coef = tuple(float(r[f"c{k}"]) for k in range(3))
+    form = (r.get("form") or "").strip() or "direct"
+    if form == "inverse":
+        if band in (names[1], names[2]) or seq is not None:
+            raise ValueError(f"band_relations.csv: inverse relation of {band} must use a colour of the base system")
+        coef = (float(r["zp"]) - coef[0], -coef[1], -coef[2])
+    elif form != "direct":
+        raise ValueError(f"band_relations.csv: relation of {band} has unknown form {form!r} (direct or inverse)")
+    return BandRelation(band, names[0], names[1], names[2], coef, names[3], names[4],
+                        float(r["v_lo"]), float(r["v_hi"]), float(r["teff_max_k"]),
+                        r["source"].strip(), r["location"].strip(), r["obtained"].strip(), seq)
+
+
 @table_cache
 def _relations() -> dict[str, BandRelation]:
     text = _text("band_relations.csv")
     rows = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     reg = _registry()
-    out = {}
+    by_band: dict[str, list] = {}
     for r in csv.DictReader(io.StringIO("\n".join(rows))):
         band = r["band"].strip()
         if band not in reg or reg[band].colour_source != "relation":
             raise ValueError(f"band_relations.csv: {band!r} is not a relation band of bands.csv")
-        if band in out:
-            raise ValueError(f"band_relations.csv: band {band} has more than one relation")
-        names = [r[k].strip() for k in ("base", "xa", "xb", "va", "vb")]
-        for n in names:
-            if n not in reg:
-                raise ValueError(f"band_relations.csv: relation of {band} uses unknown band {n!r}")
-        seq_name = (r.get("sequence") or "").strip()
-        seq = None
-        if seq_name:
-            if seq_name not in _sequences():
-                raise ValueError(f"band_relations.csv: relation of {band} names unknown sequence {seq_name!r}")
-            seq = _sequences()[seq_name]
-        out[band] = BandRelation(band, names[0], names[1], names[2],
-                                 tuple(float(r[f"c{k}"]) for k in range(3)), names[3], names[4],
-                                 float(r["v_lo"]), float(r["v_hi"]), float(r["teff_max_k"]),
-                                 r["source"].strip(), r["location"].strip(), r["obtained"].strip(), seq)
+        by_band.setdefault(band, []).append(_relation_row(r, band, reg))
+    out = {}
+    for band, rels in by_band.items():
+        if len(rels) == 1:
+            out[band] = rels[0]
+            continue
+        rels.sort(key=lambda q: q.v_lo)
+        first = rels[0]
+        for a, b in zip(rels, rels[1:]):   # colour pieces: same selecting colour and Teff limit, contiguous
+            if (b.va, b.vb, b.teff_max_k) != (first.va, first.vb, first.teff_max_k) or b.v_lo != a.v_hi:
+                raise ValueError(f"band_relations.csv: the rows of {band} must be contiguous pieces in one colour "
+                                 f"({first.va}-{first.vb}) with one Teff limit")
+        out[band] = BandRelation(band, first.base, first.xa, first.xb, first.coef, first.va, first.vb,
+                                 first.v_lo, rels[-1].v_hi, first.teff_max_k, first.source, first.location,
+                                 first.obtained, first.sequence, tuple(rels))
     return out
 
 
@@ -310,7 +368,7 @@ def _relation_closure(names) -> tuple[set, list]:
             raise ValueError(f"band {b} ({band.system}): no published colour relation is tabulated for it yet "
                              f"(tables/band_relations.csv), so its magnitudes are not available; its passband "
                              f"and extinction are")
-        for dep in (r.base, r.xa, r.xb, r.va, r.vb):
+        for dep in r.deps():
             visit(dep)
         order.append(b)
 
@@ -331,11 +389,7 @@ def _apply_relations(m: dict, order: list, teff, check: bool) -> None:
     for _ in range(50):
         delta = 0.0
         for b in order:
-            r = rels[b]
-            x = m[r.xa] - m[r.xb]
-            new = m[r.base] + r.coef[0] + x * (r.coef[1] + r.coef[2] * x)
-            if r.sequence is not None:
-                new = new + np.interp(x, *r.sequence)
+            new = rels[b].evaluate(m)
             if new.size:
                 delta = max(delta, float(np.nanmax(np.abs(new - m[b]), initial=0.0)))
             m[b] = new
@@ -662,7 +716,9 @@ class FixedMetallicityPhotometry:
     blend weight between the tracks, so a star's bolometric correction is
     ``BC_dwarf + w_g (BC_giant - BC_dwarf)`` exactly; only the linear interpolation in log Teff on the
     6001-point grid (spacing 2e-4 dex) differs from :func:`absolute_magnitudes`, by < 1e-4 mag.  The
-    Gaia bands, non-linear in V - I_C, are mapped from the blended V - I_C as in :func:`colours_v`.
+    Gaia bands, non-linear in V - I_C, are mapped from the blended V - I_C as in :func:`colours_v`, and
+    the relation bands (HST, surveys; non-linear in colour) from the blended magnitudes of the bands their
+    published relations read, with the same refusal outside a relation's validity.
     ``extra`` adds Teff-only columns (name -> function of Teff in K) on the same grid, e.g.
     extinction ratios, so they share one look-up.
     """
@@ -675,11 +731,16 @@ class FixedMetallicityPhotometry:
         tg, _rg, _gg, _names, _t = _engine()
         logt = tg.lo + tg.step * np.arange(tg.n)
         teff = 10.0 ** logt
-        need = set(self.bands) | ({"I"} if set(self.bands) & set(self._GAIA) else set())
+        # relation bands (HST, surveys) are not blended themselves: their published relations are non-linear in
+        # colour (quadratic terms, colour pieces), so they are applied to the blended magnitudes of the bands
+        # they read, exactly as in colours_v (a star outside a relation's validity is refused there)
+        rel = [b for b in self.bands if _is_relation(b)]
+        core_need, self._rel_order = _relation_closure(rel) if rel else (set(), [])
+        self._core = tuple(dict.fromkeys([b for b in self.bands if not _is_relation(b)] + sorted(core_need)))
+        need = set(self._core) | ({"I"} if set(self._core) & set(self._GAIA) else set())
         cols = {}
         for key, logg in (("d", _DWARF_LOGG), ("g", _GIANT_LOGG)):
-            v = colours_v(teff, np.full_like(teff, logg), np.full_like(teff, self.feh), only=tuple(need),
-                          check=False)   # NaN outside a relation band's validity: refused at look-up
+            v = colours_v(teff, np.full_like(teff, logg), np.full_like(teff, self.feh), only=tuple(need))
             cols[f"bcv_{key}"] = v["_bc_v"]
             for b in need:
                 if b not in self._GAIA:
@@ -708,20 +769,6 @@ class FixedMetallicityPhotometry:
         g += d
         return g
 
-    def _relation_bc(self, name, i, f, wg, logteff):
-        """BC of a relation band, refusing stars outside its published relation (NaN on the grid)."""
-        d = self.grid.get(f"{name}_d", i, f)
-        g = self.grid.get(f"{name}_g", i, f)
-        bc = np.where(wg >= 1.0, g, np.where(wg <= 0.0, d, d + wg * (g - d)))
-        bad = np.isnan(bc)
-        if bad.any():
-            r = _relations()[name]
-            t = 10.0 ** np.asarray(logteff, float)[bad] if np.ndim(logteff) else np.array([10.0 ** float(logteff)])
-            raise ValueError(f"band {name}: {int(bad.sum())} star(s) (Teff {t.min():,.0f}-{t.max():,.0f} K) outside "
-                             f"the published relation ({r.source}, {r.location}: valid for {r.validity()}); "
-                             f"not extrapolated")
-        return bc
-
     def absolute_magnitudes(self, logteff, logg, logl, located=None) -> dict[str, np.ndarray]:
         """``M_band`` for every band; ``located`` may pass a precomputed ``locate(logteff)``.
 
@@ -733,17 +780,21 @@ class FixedMetallicityPhotometry:
         wg = self.gravity_weight(logg)
         mbol = M_BOL_SUN - 2.5 * np.asarray(logl, float)
         out = {}
-        if set(self.bands) & set(self._GAIA):
+        if set(self._core) & set(self._GAIA):
             _tg, _rg, gg, _names, _t = _engine()
             ig, fg = gg.locate(self._bc("vi", i, f, wg))
             bcv = self._bc("bcv", i, f, wg)
-        for b in self.bands:
+        for b in self._core:
             if b in self._GAIA:
                 out[b] = mbol - (bcv + gg.get(b, ig, fg))
-            elif _is_relation(b):
-                out[b] = mbol - self._relation_bc(b, i, f, wg, logteff)
             else:
                 m = self._bc(b, i, f, wg)
                 np.subtract(mbol, m, out=m)
                 out[b] = m
-        return out
+        if self._rel_order:
+            shape = np.shape(out[self._core[0]])
+            flat = {b: np.ravel(v) for b, v in out.items()}
+            _apply_relations(flat, self._rel_order, np.ravel(np.broadcast_to(10.0 ** np.asarray(logteff, float),
+                                                                                shape)), True)
+            out.update({b: flat[b].reshape(shape) for b in self._rel_order})
+        return {b: out[b] for b in self.bands}
