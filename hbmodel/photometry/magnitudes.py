@@ -186,7 +186,7 @@ def parse_bands(text, what: str | None = "--bands", n: int | None = None) -> tup
     return bands
 
 
-def parse_colour(text, what: str = "--color") -> tuple[str, str]:
+def parse_colour(text, what: str = "--colour") -> tuple[str, str]:
     """'J-Ks' (or 'j-k') -> ('J', 'Ks'): a colour index A-B of two different known bands."""
     parts = str(text).split("-")
     if len(parts) != 2 or not all(p.strip() for p in parts):
