@@ -18,9 +18,13 @@ def _median_hb_mass(pop, seed, n_hb=3000):
 def test_bug1_stale_mocks_after_mass_loss_reassignment():
     # Bug 1 (stale mocks): the sampler cached on population.__dict__ survived `pop.mass_loss = ...`,
     # so mocks kept the HB masses of the old mass loss while `predict` used the new one.
+    # Populations are now immutable values (assignment raises); the changed copy from replace() must
+    # not reuse the caches of the original.
     pop = Population(-1.5, 12.0, mass_loss=MassLoss.from_eta(0.3, 0.03))
     before = _median_hb_mass(pop, 1)
-    pop.mass_loss = MassLoss.from_eta(0.6, 0.03)
+    with pytest.raises(AttributeError, match="immutable"):
+        pop.mass_loss = MassLoss.from_eta(0.6, 0.03)
+    pop = pop.replace(mass_loss=MassLoss.from_eta(0.6, 0.03))
     after = _median_hb_mass(pop, 2)
     fresh = _median_hb_mass(Population(-1.5, 12.0, mass_loss=MassLoss.from_eta(0.6, 0.03)), 3)
     # MC error of a median of n draws ~ 1.25 sd / sqrt(n): sd ~ 0.015 Msun here, so ~3e-4 Msun per mock
@@ -28,12 +32,23 @@ def test_bug1_stale_mocks_after_mass_loss_reassignment():
     assert before - after > 0.05  # more mass loss -> lighter HB stars (the change is far above the MC error)
 
 
+def test_population_replace_changes_only_what_is_asked():
+    base = Population(-1.5, 12.0, alpha_fe=0.3, mass_loss=MassLoss.from_eta(0.4, 0.02), helium=0.26)
+    p = base.replace(feh=-1.0)
+    assert p.components[0].feh == -1.0 and p.components[0].age_gyr == 12.0 and p.components[0].alpha_fe == 0.3
+    assert p.helium == 0.26 and p.mass_loss is base.mass_loss and base.components[0].feh == -1.5
+    with pytest.raises(TypeError, match="unknown"):
+        base.replace(metallicity=0.0)
+
+
 def test_bug1_other_defining_fields_rebuild_the_population():
     # Bug 1 (stale caches), same mechanism: assigning a defining field after construction must
     # give the same predictions as a fresh population built with that value.
     pop = Population(-1.5, 12.0)
     _median_hb_mass(pop, 1, n_hb=200)  # fill the caches
-    pop.helium = 0.30
+    with pytest.raises(AttributeError, match="replace"):
+        pop.helium = 0.30
+    pop = pop.replace(helium=0.30)
     fresh = Population(-1.5, 12.0, helium=0.30)
     assert pop.subpopulations[0].tip_mass_msun == pytest.approx(fresh.subpopulations[0].tip_mass_msun, rel=1e-12)
     assert _median_hb_mass(pop, 5) == pytest.approx(_median_hb_mass(fresh, 5), abs=1e-9)

@@ -18,6 +18,8 @@ early AGB ``t_EAGB``, so the R-parameter N_HB/N_RGB is a prediction, not an inpu
 """
 from __future__ import annotations
 
+import dataclasses
+
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -253,19 +255,39 @@ class Population:
         Faintest RGB luminosity (log L/Lsun) included in star sets (default 0.8, near the RGB base).
     """
 
-    #: Attributes that define the population.  Assigning one after construction rebuilds the
-    #: sub-populations and drops every derived cache kept on the instance (``_*_cache``: sampler
-    #: tables, eta maps, HB lifetimes), so nothing computed for the old value is reused.
+    #: Attributes that define the population (the constructor's arguments).  A population is an
+    #: immutable value: assigning any public attribute after construction raises ``AttributeError``;
+    #: :meth:`replace` returns a changed copy.  Derived caches (private ``_*`` attributes: sampler
+    #: tables, eta maps, HB lifetimes) therefore always belong to the values they were computed for.
     _DEFINING_FIELDS = ("components", "helium", "mass_loss", "helium_enriched_fraction", "helium_delta_y",
                         "logl_rgb_min")
 
     def __setattr__(self, name, value):
+        if not name.startswith("_") and "subpopulations" in self.__dict__:
+            raise AttributeError(f"Population is immutable: use pop.replace({name}=...) for a changed copy")
         object.__setattr__(self, name, value)
-        if name in self._DEFINING_FIELDS and "subpopulations" in self.__dict__:
-            for key in [k for k in self.__dict__ if k.startswith("_") and k.endswith("_cache")]:
-                del self.__dict__[key]
-            if name != "mass_loss":  # the sub-populations do not depend on the mass loss
-                object.__setattr__(self, "subpopulations", self._build_subpopulations())
+
+    def __delattr__(self, name):
+        if not name.startswith("_"):
+            raise AttributeError("Population is immutable")
+        object.__delattr__(self, name)
+
+    def replace(self, **changes) -> "Population":
+        """A copy with some defining values changed, e.g. ``pop.replace(mass_loss=MassLoss.from_eta(0.6))``.
+
+        Accepts the constructor's keyword arguments; ``feh``, ``age_gyr`` and ``alpha_fe`` change every
+        component of the population (a simple population has one)."""
+        allowed = set(self._DEFINING_FIELDS) | {"feh", "age_gyr", "alpha_fe"}
+        unknown = sorted(set(changes) - allowed)
+        if unknown:
+            raise TypeError(f"Population.replace() got unknown field(s): {', '.join(unknown)}")
+        kw = {k: getattr(self, k) for k in self._DEFINING_FIELDS}
+        comp = changes.pop("components", kw["components"])
+        simple = {k: float(changes.pop(k)) for k in ("age_gyr", "feh", "alpha_fe") if k in changes}
+        if simple:
+            comp = tuple(dataclasses.replace(c, **simple) for c in comp)
+        kw.update(changes, components=comp)
+        return type(self)(**kw)
 
     def __init__(self, feh=None, age_gyr=None, *, alpha_fe=0.0, helium=None, mass_loss=None,
                  components=None, helium_enriched_fraction=0.0, helium_delta_y=0.0, logl_rgb_min=0.8):
