@@ -538,12 +538,17 @@ class CMDLikelihood:
     #: Form the walkers' models on the stars' pixels from the pre-convolved basis (False: whole images
     #: convolved exactly per walker, the reference the fast path is tested against).
     at_stars = True
-    #: Spacing of the spreads at which the basis is pre-convolved, in units of sqrt(W), W the variance (in
-    #: E(B-V)^2) of the narrowest image feature along the reddening vector (own choice: the cubic Hermite
-    #: interpolation in V = spread^2 between them then changes the log-likelihood of a 1,745-star fit by
-    #: < 0.004 over the whole spread range, against the exact convolution; tests/test_fit.py).  The spacing
-    #: relative to sqrt(W + V) is largest (1.5) near sd = sqrt(W) and falls as 2 x step / sd beyond.
-    _LEVEL_STEP = 1.5
+    #: Interpolate between every other pre-convolved level only (fewer levels to compute: the first of the
+    #: MAP search's Nelder-Mead runs, which then end on the full set of levels).
+    coarse = False
+    #: Levels of the pre-convolved basis: from V = spread^2 = 0, each step the smaller of (i) W + V growing by
+    #: _LEVEL_RATIO and (ii) the spread growing by _LEVEL_STEP sqrt(W), W the variance (in E(B-V)^2) of the
+    #: narrowest image feature along the reddening vector (pixel and smoothing floor).  Own choices: the
+    #: cubic Hermite interpolation in V between levels then changes the log-likelihood of a 1,745-star fit
+    #: by < 0.03 over the whole spread range against the exact convolution of the walker's image (measured
+    #: on random parameter sets); tests/test_fit.py checks the density against the analytic convolution.
+    _LEVEL_STEP = 1.0
+    _LEVEL_RATIO = 2.0
     #: Bytes of pre-convolved basis kept in memory (least recently used levels are dropped, recomputed on need).
     _LEVEL_BUDGET = 384 * 2 ** 20
 
@@ -566,8 +571,13 @@ class CMDLikelihood:
             w2 = ((fit_constants()["smooth_floor_per_pixel"] * pix) ** 2
                   + (s.dc ** 2 * e[0] ** 2 + s.dm ** 2 * e[1] ** 2) / 12)   # floor and pixel along v
             W = w2 / (vc * vc + vm * vm)
-            n_lv = max(1, int(np.ceil(self.spread_max / (self._LEVEL_STEP * np.sqrt(W)))))
-            self._levels = np.linspace(0.0, self.spread_max, n_lv + 1) ** 2
+            vmax, step = self.spread_max ** 2, self._LEVEL_STEP * np.sqrt(W)
+            lv = [0.0]
+            while lv[-1] < vmax:  # the smaller of the two steps (see _LEVEL_STEP)
+                v = lv[-1]
+                lv.append(v + min((self._LEVEL_RATIO - 1.0) * (W + v), (np.sqrt(v) + step) ** 2 - v))
+            lv[-1] = vmax
+            self._levels = np.array(lv)
         self._spectra = {}               # helium node -> [transforms of the padded basis rows, done]
         self._views = [self._view(self._box_lo, self._box_hi)]
 
@@ -713,17 +723,21 @@ class CMDLikelihood:
     def _level_weights(self, sd, n):
         """Cubic Hermite weights in V = sd^2 of the pre-convolved levels: per level l, (walkers using it,
         weight of B_l, weight of D_l) -- each walker uses its two bracketing levels."""
-        lv = self._levels
-        if sd is None or self._blur_q is None or lv.size == 1:
+        if sd is None or self._blur_q is None or self._levels.size == 1:
             return [(0, np.arange(n), np.ones(n), None)]
+        num = np.arange(self._levels.size)
+        if self.coarse:  # every other level (the first and last kept)
+            num = np.unique(np.append(num[::2], num[-1]))
+        lv = self._levels[num]
         V = sd * sd
-        l0 = np.clip(np.searchsorted(lv, V, side="right") - 1, 0, lv.size - 2)
-        h = lv[l0 + 1] - lv[l0]
+        i0 = np.clip(np.searchsorted(lv, V, side="right") - 1, 0, lv.size - 2)
+        l0 = num[i0]
+        h = lv[i0 + 1] - lv[i0]
         t = np.clip((V - lv[l0]) / h, 0.0, 1.0)
         t2, t3 = t * t, t * t * t
         cb = np.stack([2 * t3 - 3 * t2 + 1, -2 * t3 + 3 * t2], axis=1)     # (n, 2): lower, upper level
         cd = np.stack([(t3 - 2 * t2 + t) * h, (t3 - t2) * h], axis=1)
-        ll = np.stack([l0, l0 + 1], axis=1)
+        ll = np.stack([l0, num[i0 + 1]], axis=1)
         out = []
         for l in np.unique(ll):
             w_idx, side = np.nonzero(ll == l)
