@@ -14,7 +14,8 @@ Method
   ``dm`` (magnitude) act on the data only through the 2-D shift ``s_c = k E + dc``, ``s_m = DM + R_1 E + dm``
   (``R_1 = A_1/E``, ``k = R_1 - R_2`` from :func:`hbmodel.photometry.extinction.extinction_ratio` at the Teff of the RGB
   at the HB's magnitude; the rest of each star's temperature-dependent extinction at the prior mean E, which
-  broad bands such as Gaia G have, is carried by the surrogate's nodes).  With Gaussian priors the shift therefore has a bivariate Gaussian prior; the sampler explores
+  broad bands such as Gaia G have, is carried by the surrogate's nodes).  With Gaussian priors the shift
+  therefore has a bivariate Gaussian prior; the sampler explores
   ``(s_c, s_m)`` and ``DM, E, dc, dm`` are drawn afterwards from their exact Gaussian conditional given the
   shift (E >= 0 enforced by rejection in that step only).  The prior widths of ``dc``/``dm`` stand for the
   colour-temperature calibration's uncertainty (0.02 / 0.03 mag, ``tables/fit_settings.csv``).
@@ -321,8 +322,9 @@ class MassLossFit:
         comp = self.population.components[0]
         cst = fit_constants()
         self.age0_ = comp.age_gyr
-        ext_col, ext_mag, m_base, teff_ref = population_extent(feh=comp.feh, alpha_fe=comp.alpha_fe, age_gyr=comp.age_gyr,
-                                                     helium=self.population.helium, bands=bands)
+        ext_col, ext_mag, m_base, teff_ref = population_extent(feh=comp.feh, alpha_fe=comp.alpha_fe,
+                                                               age_gyr=comp.age_gyr,
+                                                               helium=self.population.helium, bands=bands)
         r1 = float(extinction_ratio(bands[0], teff_ref, self.rv, self.law))
         r2 = float(extinction_ratio(bands[1], teff_ref, self.rv, self.law))
         # shift prior (linear map of Gaussian DM, E, dc, dm)
