@@ -198,33 +198,20 @@ def _check_cluster(name):
     return d["q"], _globular(name)[2]
 
 
-@pytest.mark.parametrize("name", [
-    # Oo II, <Pc> 0.36 d: Kopacki 2001, A&A 369, 862 (abstract)
-    "M92 (NGC 6341)",
-    # Oo II, <Pc> 0.333 d: Lee & Carney 1999, AJ 117, 2868 (abstract)
-    "M2 (NGC 7089)",
-    # Oo II, <Pc> 0.33 d: Kunder et al. 2013, AJ 146, 119 (abstract)
-    "M22 (NGC 6656)",
-])
-def test_held_out_cluster_mean_rrc_period(name):
+# held-out Oosterhoff II clusters (values in tables/targets/clusters.ecsv): M92 Kopacki 2001, A&A 369, 862 (abstract:
+# <Pc> 0.36 d, 11 RRab + 6 RRc); M2 Lee & Carney 1999, AJ 117, 2868 (abstract: <Pc> 0.333 d, n(c)/n(ab+c) = 0.40);
+# M22 Kunder et al. 2013, AJ 146, 119 (abstract: <Pc> 0.33 d, N1/NRR = 0.61)
+@pytest.mark.parametrize("name", ["M92 (NGC 6341)", "M2 (NGC 7089)", "M22 (NGC 6656)"])
+@pytest.mark.parametrize("quantity, tol", [
     # before the strip calibration the model's RRc periods were 0.03-0.05 d short in every cluster
-    q, p = _check_cluster(name)
-    assert abs(p["pc_mean"] - q["pc_mean"][0]) <= 0.03
-
-
-@pytest.mark.parametrize("name", [
-    # Oo II, 11 RRab + 6 RRc, N_c/N_RR 0.35: Kopacki 2001, A&A 369, 862 (abstract)
-    "M92 (NGC 6341)",
-    # Oo II, n(c)/n(ab+c) = 0.40: Lee & Carney 1999, AJ 117, 2868 (abstract)
-    "M2 (NGC 7089)",
-    # Oo II, N1/NRR = 0.61: Kunder et al. 2013, AJ 146, 119 (abstract)
-    "M22 (NGC 6656)",
+    ("pc_mean", 0.03),
+    # issue 13 tolerance; before every blue-HB track crossed the whole strip, tracks ending inside it piled stars on
+    # its first-overtone side: M92 0.54 and M2 0.60 against 0.35 and 0.40
+    ("f_rrc", 0.15),
 ])
-def test_held_out_oosterhoff_ii_rrc_fraction(name):
-    # issue 13 tolerance (0.15). Before every blue-HB track crossed the whole strip, tracks ending inside it piled
-    # stars on its first-overtone side: M92 0.54 and M2 0.60 against 0.35 and 0.40
+def test_held_out_oosterhoff_ii_cluster(name, quantity, tol):
     q, p = _check_cluster(name)
-    assert abs(p["f_rrc"] - q["f_rrc"][0]) <= 0.15
+    assert abs(p[quantity] - q[quantity][0]) <= tol
 
 
 @pytest.mark.xfail(reason="known defect (issue 13): 3 of 5 benchmark clusters with >= 10 RRab pass (M53, M5, M22); "
