@@ -55,6 +55,8 @@ __all__ = ["ErrorModel", "HBSurrogate", "CMDLikelihood", "hat_gaussian_weights",
            "hess_poisson_deviance"]
 
 _SQ2PI = np.sqrt(2.0 * np.pi)
+#: Threads of the once-per-fit transforms of the basis (the machine's two cores; per-walker work stays on one)
+_FFT_WORKERS = 2
 # Gauss-Hermite nodes/weights for the standard normal (probabilists' Hermite, weights summing to 1)
 _GH_T, _GH_W = np.polynomial.hermite_e.hermegauss(9)
 _GH_W = _GH_W / _GH_W.sum()
@@ -655,14 +657,14 @@ class CMDLikelihood:
         need = rows[~have[rows]]
         for a in range(0, need.size, 16):  # chunks of basis images (memory)
             r = need[a:a + 16]
-            F[r] = sfft.rfft2(plain(r).reshape(-1, nm, nc), s=shape, axes=(1, 2), workers=1)
+            F[r] = sfft.rfft2(plain(r).reshape(-1, nm, nc), s=shape, axes=(1, 2), workers=_FFT_WORKERS)
         have[need] = True
         m = np.exp(-V * q)
         for rr, mult, arr, flag in ((rows_b, m, B, done_b), (rows_d, -q * m, D, done_d)):
             for a in range(0, rr.size, 16):
                 r = rr[a:a + 16]
-                store(arr, r, sfft.irfft2(F[r] * mult, s=shape, axes=(1, 2), workers=1)[:, :nm, :nc].reshape(
-                    r.size, -1)[:, pix])
+                out = sfft.irfft2(F[r] * mult, s=shape, axes=(1, 2), workers=_FFT_WORKERS)[:, :nm, :nc]
+                store(arr, r, out.reshape(r.size, -1)[:, pix])
             flag[rr] = True
 
     def nearest_spread_level(self, sd):
