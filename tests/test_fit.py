@@ -490,22 +490,32 @@ def test_preconvolved_reddening_matches_the_exact_convolution(spread):
     assert z[0] == pytest.approx(z_exact[0], rel=2e-3)
 
 
-def test_fit_on_the_stars_pixels_matches_the_exact_path():
-    # The same fit of a metal-poor HB with a star-to-star E(B-V) spread of 0.01 mag (150 HB stars, spread
-    # nuisance on) with the fast likelihood and with the exact per-walker convolution of whole images: the
-    # Laplace posteriors agree -- medians within a tenth of the 16-84 % width, widths within 5 %, the MAP's
-    # log posterior within 0.05 (own tolerances; measured: medians within 0.02 of the width, log posterior
-    # within 0.001).
+_FAST_EXACT_CASES = {
+    # metal-poor blue HB, 150 HB stars, E(B-V) spread 0.01 mag
+    "blue HB": ((-1.6, 12.5, 0.3), MassLoss.from_eta(0.45, 0.03), 15.0, 0.05, {"V": 22.5, "I": 21.8}),
+    # red clump, 150 HB stars, same spread: a flat posterior in dM (the Laplace check warns) whose
+    # Nelder-Mead search must still end at the same maximum
+    "red clump": ((0.0, 4.0, 0.0), MassLoss.from_delta_m(0.08, 0.01), 12.0, 0.2, {"V": 22, "I": 21}),
+}
+
+
+@pytest.mark.parametrize("case", list(_FAST_EXACT_CASES))
+def test_fit_on_the_stars_pixels_matches_the_exact_path(case):
+    # The same fit with the fast likelihood and with the exact per-walker convolution of whole images: the
+    # Laplace posteriors agree -- medians within a tenth of the 16-84 % width, widths within 5 % (blue HB),
+    # the MAP's log posterior within 0.05 (own tolerances; measured: medians within 0.03 of the width, log
+    # posterior within 0.003).
     from hbmodel.inference.likelihood import CMDLikelihood
-    pop = Population(-1.6, 12.5, alpha_fe=0.3, mass_loss=MassLoss.from_eta(0.45, 0.03))
+    (feh, age, afe), ml, dm, ebv, depth = _FAST_EXACT_CASES[case]
+    pop = Population(feh, age, alpha_fe=afe, mass_loss=ml)
     cat = make_mock(pop, bands=("V", "I"), rng=np.random.default_rng(5), n_hb=150,
-                    obs=ObservationSpec(distance_modulus=15.0, ebv=0.05, ebv_sd=0.01, depth={"V": 22.5, "I": 21.8}))
-    pri = Priors(distance_modulus=(15.0, 0.05), ebv=(0.05, 0.01)).with_ebv_spread("prior")
+                    obs=ObservationSpec(distance_modulus=dm, ebv=ebv, ebv_sd=0.01, depth=depth))
+    pri = Priors(distance_modulus=(dm, 0.05), ebv=(ebv, 0.01 if ebv < 0.1 else 0.02)).with_ebv_spread("prior")
     res, lp = {}, {}
     for fast in (True, False):
         CMDLikelihood.at_stars = fast
         try:
-            f = MassLossFit(Population(-1.6, 12.5, alpha_fe=0.3), pri, sampler="laplace", compare_models=False,
+            f = MassLossFit(Population(feh, age, alpha_fe=afe), pri, sampler="laplace", compare_models=False,
                             seed=1).fit(cat)
         finally:
             CMDLikelihood.at_stars = True
@@ -515,7 +525,9 @@ def test_fit_on_the_stars_pixels_matches_the_exact_path():
         a, b = res[True][k], res[False][k]
         width = b["hi"] - b["lo"]
         assert abs(a["median"] - b["median"]) < 0.1 * width, (k, a, b)
-        assert (a["hi"] - a["lo"]) == pytest.approx(width, rel=0.05), (k, a, b)
+        if case == "blue HB":  # (the clump's MAP sits on the bound of mass_loss_sd: its Laplace widths hang
+            # on where the finite-difference stencil is placed, not on the likelihood)
+            assert (a["hi"] - a["lo"]) == pytest.approx(width, rel=0.05), (k, a, b)
 
 
 def test_cli_declared_flux_over_error_columns_fit_like_magnitude_errors(tmp_path, capsys):

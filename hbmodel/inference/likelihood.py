@@ -55,6 +55,8 @@ __all__ = ["ErrorModel", "HBSurrogate", "CMDLikelihood", "hat_gaussian_weights",
            "hess_poisson_deviance"]
 
 _SQ2PI = np.sqrt(2.0 * np.pi)
+#: Threads of the once-per-fit transforms of the basis (the machine's two cores; per-walker work stays on one)
+_FFT_WORKERS = 2
 # Gauss-Hermite nodes/weights for the standard normal (probabilists' Hermite, weights summing to 1)
 _GH_T, _GH_W = np.polynomial.hermite_e.hermegauss(9)
 _GH_W = _GH_W / _GH_W.sum()
@@ -538,9 +540,6 @@ class CMDLikelihood:
     #: Form the walkers' models on the stars' pixels from the pre-convolved basis (False: whole images
     #: convolved exactly per walker, the reference the fast path is tested against).
     at_stars = True
-    #: Interpolate between every other pre-convolved level only (fewer levels to compute: the first of the
-    #: MAP search's Nelder-Mead runs, which then end on the full set of levels).
-    coarse = False
     #: Levels of the pre-convolved basis: from V = spread^2 = 0, each step the smaller of (i) W + V growing by
     #: _LEVEL_RATIO and (ii) the spread growing by _LEVEL_STEP sqrt(W), W the variance (in E(B-V)^2) of the
     #: narrowest image feature along the reddening vector (pixel and smoothing floor).  Own choices: the
@@ -689,14 +688,14 @@ class CMDLikelihood:
         need = rows[~have[rows]]
         for a in range(0, need.size, 16):  # chunks of basis images (memory)
             r = need[a:a + 16]
-            F[r] = sfft.rfft2(plain(r).reshape(-1, nm, nc), s=shape, axes=(1, 2), workers=1)
+            F[r] = sfft.rfft2(plain(r).reshape(-1, nm, nc), s=shape, axes=(1, 2), workers=_FFT_WORKERS)
         have[need] = True
         m = np.exp(-V * q)
         for rr, mult, arr, flag in ((rows_b, m, B, done_b), (rows_d, -q * m, D, done_d)):
             for a in range(0, rr.size, 16):
                 r = rr[a:a + 16]
-                store(arr, r, sfft.irfft2(F[r] * mult, s=shape, axes=(1, 2), workers=1)[:, :nm, :nc].reshape(
-                    r.size, -1)[:, pix])
+                out = sfft.irfft2(F[r] * mult, s=shape, axes=(1, 2), workers=_FFT_WORKERS)[:, :nm, :nc]
+                store(arr, r, out.reshape(r.size, -1)[:, pix])
             flag[rr] = True
 
     def nearest_spread_level(self, sd):
@@ -726,9 +725,7 @@ class CMDLikelihood:
         if sd is None or self._blur_q is None or self._levels.size == 1:
             return [(0, np.arange(n), np.ones(n), None)]
         num = np.arange(self._levels.size)
-        if self.coarse:  # every other level (the first and last kept)
-            num = np.unique(np.append(num[::2], num[-1]))
-        lv = self._levels[num]
+        lv = self._levels
         V = sd * sd
         i0 = np.clip(np.searchsorted(lv, V, side="right") - 1, 0, lv.size - 2)
         l0 = num[i0]
@@ -737,6 +734,9 @@ class CMDLikelihood:
         t2, t3 = t * t, t * t * t
         cb = np.stack([2 * t3 - 3 * t2 + 1, -2 * t3 + 3 * t2], axis=1)     # (n, 2): lower, upper level
         cd = np.stack([(t3 - 2 * t2 + t) * h, (t3 - t2) * h], axis=1)
+        if np.all(i0 == i0[0]):  # every walker in the same bracket (the usual case in a sampler)
+            walkers = np.arange(n)
+            return [(int(l0[0]), walkers, cb[:, 0], cd[:, 0]), (int(num[i0[0] + 1]), walkers, cb[:, 1], cd[:, 1])]
         ll = np.stack([l0, num[i0 + 1]], axis=1)
         out = []
         for l in np.unique(ll):
@@ -816,18 +816,21 @@ class CMDLikelihood:
         u = (self.colour[None, :] - sc[:, None] - s.col_edges[0]) / s.dc - 0.5
         v = (self.mag[None, :] - sm[:, None] - s.mag_edges[0]) / s.dm - 0.5
         inside = (u > -0.5) & (u < nc - 0.5) & (v > -0.5) & (v < nm - 0.5)
-        u = np.clip(u, 0, nc - 1 - 1e-9)
-        v = np.clip(v, 0, nm - 1 - 1e-9)
-        j = u.astype(int)
-        i = v.astype(int)
-        tu = u - j
-        tv = v - i
+        np.clip(u, 0, nc - 1 - 1e-9, out=u)
+        np.clip(v, 0, nm - 1 - 1e-9, out=v)
+        j = u.astype(np.intp)
+        i = v.astype(np.intp)
+        u -= j
+        v -= i
         base = i * nc + j
-        off = np.arange(n)[:, None] * view["pix"].size
-        f = img.ravel()
         cm = view["cmap"]
-        val = ((f[cm[base] + off] * (1 - tu) + f[cm[base + 1] + off] * tu) * (1 - tv)
-               + (f[cm[base + nc] + off] * (1 - tu) + f[cm[base + nc + 1] + off] * tu) * tv)
+        f = img.ravel()
+        off = np.arange(n)[:, None] * view["pix"].size
+        c00, c01 = cm[base] + off, cm[base + 1] + off
+        c10, c11 = cm[base + nc] + off, cm[base + nc + 1] + off
+        lo = f[c00] + (f[c01] - f[c00]) * u
+        hi = f[c10] + (f[c11] - f[c10]) * u
+        val = lo + (hi - lo) * v
         return np.where(inside, val, 0.0)
 
     def _model(self, p, blocks, sc, sm):

@@ -567,24 +567,15 @@ class MassLossFit:
         steps = self._steps(names) * step_scale
         best = None
         x = x0
-        like = self.likelihood_ if self._has_cmd else None
-        for k in range(2):  # a restart shakes Nelder-Mead out of a collapsed simplex
+        for _ in range(2):  # a restart shakes Nelder-Mead out of a collapsed simplex
             simplex = [x] + [x + np.eye(len(x))[i] * steps[i] * np.where(x[i] + steps[i] > self._bnds[n][1], -1, 1)
                              for i, n in enumerate(names)]
             def obj(t):
                 v = float(f(t)[0])
                 return -v if np.isfinite(v) else 1e300
-            if like is not None:  # the first run interpolates the reddening spread between fewer levels
-                like.coarse = k == 0
-            try:
-                r = minimize(obj, x, method="Nelder-Mead",
-                             options=dict(initial_simplex=np.array(simplex), maxiter=400 * len(x), xatol=1e-5,
-                                          fatol=2e-3, adaptive=True))
-            finally:
-                if like is not None:
-                    like.coarse = False
-            if k == 0 and like is not None:
-                r.fun = obj(r.x)  # its value with every level
+            r = minimize(obj, x, method="Nelder-Mead",
+                         options=dict(initial_simplex=np.array(simplex), maxiter=400 * len(x), xatol=1e-5, fatol=2e-3,
+                                      adaptive=True))
             if best is not None and best.fun - r.fun < 0.05:
                 best = r if r.fun < best.fun else best
                 break
