@@ -578,8 +578,10 @@ def test_issue_differential_reddening_case(bands):
     hb, rgb = np.asarray(cat["phase"]) == "hb", np.asarray(cat["phase"]) == "rgb"
     truth = float(np.max(cat["mass"][rgb]) - np.mean(cat["mass"][hb]))
     pri = Priors(distance_modulus=(10.0, 0.05), ebv=(0.1, 0.02)).with_ebv_spread("prior")
-    r = MassLossFit(Population(0.0, 4.0), pri, bands=bands, sampler="laplace", compare_models=False,
-                    seed=0).fit(cat).result()
+    # emcee, as the issue's command (the default sampler): the red clump's mass-loss posterior is skewed, and
+    # the Laplace approximation rightly warns so (measured on G,RP: log posterior drop 0.79 instead of 2 at
+    # 2 sigma); emcee: dM 0.0876 [0.0688, 0.1063], spread 0.0186, p 0.60, no warnings, ~16 s
+    r = MassLossFit(Population(0.0, 4.0), pri, bands=bands, compare_models=False, seed=0).fit(cat).result()
     s = r["mass_loss"]
     assert abs(s["median"] - truth) < 2.5 * 0.5 * (s["hi"] - s["lo"]), (s, truth)
     assert r["mass_loss_sd"]["hi"] < 0.06

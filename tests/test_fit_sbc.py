@@ -1,9 +1,11 @@
 """Simulation-based calibration of the mass-loss fit (Talts et al. 2018, arXiv:1804.06788).
 
 Truths are drawn from the fit's own priors, mocks from ``make_mock`` (Monte-Carlo stars), and each mock is
-fitted with the Laplace (Gaussian-at-the-MAP) approximation -- a documented shortcut that keeps 50 fits within
-a few minutes.  Well-calibrated 68% intervals contain the truth 68% of the time; with 50 mocks the binomial
-1-sigma scatter is 6.6%, so the brief's acceptance band 60-76% is ~ +-1.2 sigma (we print the figure).
+fitted with the Laplace (Gaussian-at-the-MAP) approximation -- a documented shortcut that keeps 100 fits within
+about a minute.  Well-calibrated 68% intervals contain the truth 68% of the time; with 100 mocks (issue 15 asks
+for >= 100 draws) the binomial 1-sigma scatter is 4.7%, so the acceptance band 60-76% is ~ +-1.7 sigma (we print
+the figure).  With the former 50 mocks (+-1.2 sigma) the band was crossed by one mock's luck: 56% of the first 50
+and 62% of all 100 after the per-node extinction change (measured).
 """
 import numpy as np
 import pytest
@@ -20,7 +22,7 @@ def test_sbc_coverage_of_68_percent_intervals():
     pri = Priors(distance_modulus=(15.0, 0.05), ebv=(0.05, 0.01), mass_loss=(0.15, 0.23),
                  mass_loss_sd=(0.005, 0.03))
     pop_fit = Population(-1.6, 12.5, alpha_fe=0.3)
-    n_mock, inside, em = 50, 0, None
+    n_mock, inside, em = 100, 0, None
     for k in range(n_mock):  # one fit per mock (the mocks are the experiment)
         dm_true = rng.uniform(*pri.mass_loss)
         sd_true = rng.uniform(*pri.mass_loss_sd)

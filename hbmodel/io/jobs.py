@@ -594,6 +594,12 @@ def _workers_ignore_interrupts():
     from multiprocessing import resource_tracker as mp_tracker
 
     from joblib.externals.loky.backend import resource_tracker as loky_tracker
+    # The trackers are separate processes writing to this stderr: after a Ctrl-C, loky's may warn about
+    # a semaphore it cleans up itself (seen once under load), which would break the one-line report.
+    # Its UserWarnings alone are silenced, through the environment it is started with.
+    quiet = "ignore::UserWarning:" + loky_tracker.__name__
+    if quiet not in os.environ.get("PYTHONWARNINGS", ""):
+        os.environ["PYTHONWARNINGS"] = ",".join(filter(None, (os.environ.get("PYTHONWARNINGS"), quiet)))
     for tracker in (mp_tracker, loky_tracker):
         with contextlib.suppress(Exception):
             tracker.ensure_running()
