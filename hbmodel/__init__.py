@@ -8,8 +8,8 @@ Rooms by domain; the folder tree is the data flow, and a room imports only rooms
 
 ``physics``: composition -> giant_branch -> mass_loss -> ignition -> zahb -> hb_evolution -> pulsation
 (+ imf); ``photometry``: magnitudes, extinction; ``populations``: population, sampler, morphology, grids;
-``observation``: effects, mock; ``inference``: likelihood, mass_loss_fit, clump_lf, clump_distance,
-classify, counts_fit; ``outputs``: plots, reports.
+``observation``: effects, mock; ``inference``: error_model, surrogate, likelihood, mass_loss_fit (its parts in
+mass_loss_estimator), clump_lf, clump_distance, classify, counts_fit; ``outputs``: plots, reports.
 """
 from hbmodel.core.version import __version__  # noqa: F401
 

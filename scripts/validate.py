@@ -15,7 +15,7 @@ import sys
 
 import numpy as np
 
-from hbmodel.calibration import read_targets, score_rows
+from hbmodel.calibration import read_clusters, read_targets, score_rows
 from hbmodel.calibration.benchmark import PREDICTED_QUANTITIES, oosterhoff_criterion, run_benchmark
 
 
@@ -68,6 +68,8 @@ def _section(scores, role, markdown):
 
 def _clusters(markdown, role=None):
     res = run_benchmark(progress=lambda n: print(f"  fitting {n} ...", file=sys.stderr, flush=True), role=role)
+    c = read_clusters()
+    row_role = {(n, q): rl for n, q, rl in zip(c["name"], c["quantity"], c["role"])}
     lines = []
     if markdown:
         lines += ["| cluster | role | [Fe/H] | HB ratio | η fitted | quantity | observed | model | pull |", "|---|---|---|---|---|---|---|---|---|"]
@@ -84,6 +86,7 @@ def _clusters(markdown, role=None):
                          f"{head[0]:<18} {head[1]:<5} {head[2]:>6} {head[3]:>6} {head[4]:>6}  {note}")
             continue
         for q in qs:
+            head = (r.name, row_role.get((r.name, q), r.role)) + head[2:]   # a row's own role (held-out rows of a fitted cluster)
             v, u = r.observed[q]
             m = r.predicted.get(q, np.nan)
             extra = r.notes.get(q, "")

@@ -476,3 +476,11 @@ def test_outputs_follow_umask(jobs_file, tmp_path, umask):
     assert {f.name: oct(f.stat().st_mode & 0o777) for f in files} == {f.name: oct(0o666 & ~umask) for f in files}
     for d in (tmp_path / "out", tmp_path / "out" / "Vela-0", tmp_path / "c"):
         assert d.stat().st_mode & 0o777 == 0o777 & ~umask
+
+
+def test_chunked_progress_bar(tmp_path, capsys):
+    # case: a bar over the partitions when asked (ending at n/n); none by default when stderr is not a terminal
+    run_chunked(1000, 250, _normal_chunk, tmp_path / "p", progress=True)
+    assert "4/4" in capsys.readouterr().err
+    run_chunked(1000, 250, _normal_chunk, tmp_path / "q")
+    assert "partitions" not in capsys.readouterr().err

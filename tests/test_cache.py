@@ -112,3 +112,33 @@ def test_concurrent_writers_leave_one_valid_entry(tmp_path):
     files = list((tmp_path / "cache").iterdir())
     assert len(files) == 1 and files[0].suffix == ".npy"
     np.testing.assert_array_equal(np.load(files[0]), np.arange(200000.0))
+
+
+def test_rgb_mass_loss_grid_is_cached_and_is_the_integration(monkeypatch, tmp_path):
+    # reference: the Runge-Kutta integration of the Reimers (1975) law itself (mass_loss.integrate_rgb_mass_loss);
+    # the grid read back from the disk cache must be that integration to the bit, and a trial table block
+    # (the calibration) never reads or fills the disk cache
+    from hbmodel.core.tables import table_text, trial_tables
+    from hbmodel.physics import mass_loss as ml
+    _fresh(monkeypatch, tmp_path)
+    args = (0.84, 0.488, -1.3, 0.0, 0.75, "reimers", 1.0)
+    etas = np.linspace(0.0, 1.0, 241)
+    mf, lost = ml.integrate_rgb_mass_loss(etas, 0.84, 0.488, -1.3, helium_excess=0.0, x_env=0.75)
+    ml._eta_grid_cached.cache_clear()
+    first = ml._eta_grid_cached(*args, "k")
+    assert len(list((tmp_path / "cache").glob("rgb-mass-loss-*.npy"))) == 1
+    ml._eta_grid_cached.cache_clear()
+    monkeypatch.setattr(ml, "integrate_rgb_mass_loss", lambda *a, **k: 1 / 0)  # a cache miss would fail
+    again = ml._eta_grid_cached(*args, "k")
+    for got in (first, again):
+        np.testing.assert_array_equal(got[0], etas)
+        np.testing.assert_array_equal(got[1], 0.84 - mf)
+        np.testing.assert_array_equal(got[2], lost)
+    # eta = 0.5 takes ~0.2 Msun from a metal-poor giant (McDonald & Zijlstra 2015, MNRAS 448, 502: eta ~0.48
+    # for globular clusters; from memory)
+    assert 0.1 < again[1][120] < 0.35
+    ml._eta_grid_cached.cache_clear()
+    with trial_tables({"mass_loss_laws.csv": table_text("mass_loss_laws.csv")}):
+        with pytest.raises(ZeroDivisionError):
+            ml._eta_grid_cached(*args, "trial")
+    ml._eta_grid_cached.cache_clear()

@@ -45,6 +45,18 @@ def test_stages_read_only_fit_rows():
         assert {r["role"] for r in rows} == {"fit"}
 
 
+def test_cluster_rows_of_a_fit_cluster_keep_their_own_role():
+    # calibration discipline (owner's rule): a 'check' row is never used by a fit, also when its cluster has 'fit'
+    # rows: NGC 4147 has a fitted [Fe/H] and HB ratio (Harris 1996) but held-out RR Lyrae rows (Clement catalogue)
+    from hbmodel.calibration.benchmark import cluster_rows
+    c = read_clusters()
+    role = {(n, q): r for n, q, r in zip(c["name"], c["quantity"], c["role"])}
+    assert role[("NGC 4147", "hb_ratio")] == "fit" and role[("NGC 4147", "pab_mean")] == "check"
+    rows = cluster_rows("fit")
+    assert rows and all(role[(r["cluster"], r["quantity"])] == "fit" for r in rows)
+    assert ("NGC 4147", "pab_mean") in {(r["cluster"], r["quantity"]) for r in cluster_rows("check")}
+
+
 def test_cluster_benchmark_size():
     c = read_clusters()
     names = {(n, k) for n, k in zip(c["name"], c["kind"])}

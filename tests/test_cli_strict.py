@@ -159,7 +159,7 @@ def test_fit_colour_option_is_a_reflection_of_the_colour_axis():
     ("n-hb = 10.7", ["config key 'n-hb'", "expected an integer", "10.7"]),   # was silently truncated to 10
     ('n-hb = "ten"', ["config key 'n-hb'", "expected an integer"]),
     ('force = "yes"', ["config key 'force'", "true or false"]),
-    ('law = "linear"', ["config key 'law'", "'linear' is not one of reimers"]),
+    ('law = "linear"', ["config key 'law'", "unknown mass-loss law 'linear'", "reimers, schroeder_cuntz"]),
     ("seed = true", ["config key 'seed'", "not a boolean"]),
 ])
 def test_config_value_errors_name_the_key(line, needles, tmp_path, capsys):

@@ -266,7 +266,7 @@ def test_surrogate_hb_nodes_follow_the_population_physics():
     # the HB is kept blue of the RGB and the early AGB is placed against the RGB of the tip mass.  Without
     # that the surrogate lacked the clump's bright tail (14 % of the stars) and red-clump fits of 3,000 stars
     # came out at dM = 0.14 Msun for a true 0.10.
-    from hbmodel.inference.likelihood import _intrinsic_nodes
+    from hbmodel.inference.surrogate import _intrinsic_nodes
     pop = Population(0.0, 8.0, alpha_fe=0.0, mass_loss=MassLoss.from_delta_m(0.10, 0.01))
     sub = pop.subpopulations[0]
     st = pop.model_stars(phases=("hb", "agb"))
@@ -291,7 +291,7 @@ def test_surrogate_rgb_carries_each_stars_own_extinction_in_gaia_bands():
     # source): with the offsets the reddened RGB ridge of G,RP at E(B-V) = 0.3 is the mock's to < 1 mmag;
     # with one ratio at the reference 4,600 K for all giants it is off by 0.014 mag (median) and up to 0.05.
     from hbmodel.photometry.extinction import extinction_ratio
-    from hbmodel.inference.likelihood import _extinction_offsets, _rgb_nodes
+    from hbmodel.inference.surrogate import _extinction_offsets, _rgb_nodes
     pop = Population(0.0, 4.0, mass_loss=MassLoss.from_eta(0.3, 0.03))
     ebv, dm, bands = 0.3, 10.0, ("G", "RP")
     cat = make_mock(pop, bands=bands, rng=np.random.default_rng(1), n_hb=300,
@@ -587,3 +587,16 @@ def test_issue_differential_reddening_case(bands):
     assert r["mass_loss_sd"]["hi"] < 0.06
     assert abs(r["ebv_spread"]["median"] - 0.02) < 0.004
     assert r["goodness_of_fit"]["p_value"] > 0.01 and not r["warnings"], r["warnings"]
+
+
+def test_emcee_progress_bar_only_when_asked_or_on_a_terminal(capsys):
+    # case: the emcee chain shows a tqdm bar on stderr when progress=True; by default (stderr not a terminal,
+    # as under pytest) none, so logs and pipes stay clean (issue 14; common practice of command-line tools)
+    pop = Population(0.3, 8.0)
+    m = pop.subpopulations[0].tip_mass_msun
+    tab = Table({"mass": [m, m + 0.02, m - 0.1, m - 0.08], "mass_err": [0.05] * 4,
+                 "phase": ["rgb", "rgb", "clump", "clump"]})
+    MassLossFit(pop, Priors(), max_steps=300, chunk=100, progress=True).fit(masses=tab)
+    assert "emcee" in capsys.readouterr().err
+    MassLossFit(pop, Priors(), max_steps=300, chunk=100).fit(masses=tab)
+    assert "emcee" not in capsys.readouterr().err

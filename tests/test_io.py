@@ -16,6 +16,7 @@ from astropy.table import Table
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from hbmodel.core.files import umask
 from hbmodel.io import catalogues as hio
 TABLE_EXTS = ["csv", "ecsv", "fits", "fits.gz", "vot", "xml", "parquet", "csv.gz"]
 
@@ -81,7 +82,7 @@ def test_byte_identical_output_every_format(tmp_path):
 
 def test_file_mode_follows_umask(tmp_path):
     p = hio.write_table(_sample_table(), tmp_path / "m.csv")
-    assert (p.stat().st_mode & 0o777) == (0o666 & ~hio._umask())
+    assert (p.stat().st_mode & 0o777) == (0o666 & ~umask())
 
 
 # --------------------------------------------------------------------------- #
@@ -246,7 +247,7 @@ def test_staged_out_dir_is_all_or_nothing(tmp_path):
         hio.atomic_write_text(stage / "report.md", "# r\n")
         assert not d.exists()  # nothing at the target before the block ends
     assert sorted(p.name for p in d.iterdir()) == ["report.md", "result.json"]
-    assert oct(d.stat().st_mode & 0o777) == oct(0o777 & ~hio._umask())
+    assert oct(d.stat().st_mode & 0o777) == oct(0o777 & ~umask())
     with pytest.raises(ValueError, match="not empty; use --force"):
         with hio.staged_out_dir(d):
             pass

@@ -154,3 +154,22 @@ def test_mock_writes_every_format_reproducibly(tmp_path, ext):
     from hbmodel.io.catalogues import read_catalog
     t = read_catalog(a, required=("V", "V_err", "I", "rr_mode"))
     assert np.sum(np.asarray(t["phase"]).astype(str) == "field") == 5
+
+
+def test_constant_star_formation_population():
+    # case: one constructor for "constant star formation A1-A2 Gyr" (issue 14: it was built in four places);
+    # its 8 log-spaced ages are converged: the local clump's M_Ks moves < 0.01 mag with 16 (numerical check)
+    import numpy as np
+    import pytest
+
+    from hbmodel.populations.population import MassLoss, Population
+
+    ml = MassLoss.from_eta(0.3, 0.03)
+    pop = Population.constant_star_formation(1.0, 10.0, 0.0, mass_loss=ml)
+    ages = np.geomspace(1.0, 10.0, 8)
+    assert pop.components == Population.from_history(ages, np.gradient(ages), 0.0, mass_loss=ml).components
+    fine = Population.constant_star_formation(1.0, 10.0, 0.0, n_ages=16, mass_loss=ml)
+    ks8, ks16 = (p.predict(bands=("Ks",))["clump_absmag"]["Ks"] for p in (pop, fine))
+    assert abs(ks8 - ks16) < 0.01
+    with pytest.raises(ValueError, match="age_min < age_max"):
+        Population.constant_star_formation(10.0, 1.0, 0.0)

@@ -336,6 +336,30 @@ def test_interrupted_batch_prints_one_line(tmp_path, small_catalog):
     assert rc == 130 and err.strip() == "hbmodel: interrupted", err
 
 
+_SWALLOWED_INTERRUPT = """
+import os, signal, sys, time
+import hbmodel.cli.predict as command
+def run(args):  # the interrupt is lost, as inside a compiled module's initialisation during an import
+    try:
+        os.kill(os.getpid(), signal.SIGINT)
+        time.sleep(5)
+    except KeyboardInterrupt:
+        pass
+    return 0
+command.run = run
+from hbmodel.cli.main import main
+sys.argv = ["hbmodel", "predict", "--feh", "-1.6", "--age", "12.5"]
+sys.exit(main())
+"""
+
+
+def test_interrupt_lost_inside_the_run_still_reports_it(tmp_path):
+    # case: a Ctrl-C whose KeyboardInterrupt is swallowed by library code still ends with one line and exit 130
+    proc = subprocess.run([sys.executable, "-c", _SWALLOWED_INTERRUPT], cwd=tmp_path, capture_output=True, text=True,
+                          timeout=GUARD_S)
+    assert proc.returncode == 130 and proc.stderr.strip() == "hbmodel: interrupted", proc.stderr
+
+
 def test_check_free_disk_message(tmp_path, monkeypatch):
     monkeypatch.setattr(resources, "free_disk_bytes", lambda p: 10 * 2**20)
     with pytest.raises(ResourceError, match="needs about 100 MiB of disk but only 10.0 MiB is free"):
@@ -375,3 +399,14 @@ def test_single_prediction_honours_max_memory(capsys):
     assert main(["predict", *POP_ARGS, "--max-memory", "1M"]) == 2
     assert "this prediction needs about" in capsys.readouterr().err
     assert main(["predict", *POP_ARGS, "--json"]) == 0
+
+
+def test_closed_output_pipe_stops_quietly():
+    # case: `hbmodel predict --json | head -c 1`: the reader has gone; no traceback and no error line, exit 141
+    # (128 + SIGPIPE, as shells report it; Python documentation, "Note on SIGPIPE")
+    proc = subprocess.Popen([sys.executable, "-m", "hbmodel", "predict", *POP_ARGS, "--json"],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    proc.stdout.close()
+    err = proc.stderr.read().decode()
+    proc.stderr.close()
+    assert proc.wait(timeout=GUARD_S) == 141 and err == ""

@@ -190,6 +190,42 @@ def test_mean_rrab_period_rises_with_hb_type_at_fixed_feh():
     assert pab[0.7] > pab[-0.3]
 
 
+def _oo2_statistics(feh, hb_ratio=0.93):
+    """(<Pab>, <Pc>) of a very blue (Oosterhoff II) HB at ``feh``, eta fitted to ``hb_ratio`` as in the benchmark."""
+    from hbmodel.calibration.benchmark import _gc_predictions
+    from hbmodel.calibration.evaluators import eta_for_hb_ratio as eta_fit
+    eta, sat = eta_fit(hb_ratio, feh)
+    assert sat == 0
+    p = _gc_predictions(feh, eta, 12.5, 0.3)[0]
+    return p["pab_mean"], p["pc_mean"]
+
+
+@pytest.mark.xfail(reason="known defect (issue 13): the model's Oosterhoff II <Pab> falls with [Fe/H] (0.682 d at "
+                          "-2.31, 0.627 d at -1.65 for the held-out M92 and M2) because the ZAHB is fainter at higher Z "
+                          "and the blue-HB crossing tracks have one shape at every Z", strict=False)
+def test_oosterhoff_ii_mean_rrab_period_does_not_fall_with_metallicity():
+    # Observed very blue HBs: M92 ([Fe/H] -2.31, HB ratio 0.91) <Pab> 0.630 d (Kopacki 2001, A&A 369, 862); M22
+    # (-1.76, 0.97) 0.66 d (Kunder et al. 2013, AJ 146, 119); M2 (-1.65, 0.96) 0.685 d (Lee & Carney 1999, AJ 117,
+    # 2868): the evolved RR Lyrae of intermediate-metallicity blue HBs are brighter (Lee, Demarque & Zinn 1990,
+    # ApJ 350, 155).  A model with the same track shape at every Z gave 0.682 d at -2.31 and 0.626 d at -1.65
+    # (falling with [Fe/H], because the ZAHB is fainter at higher Z)
+    p_poor, _ = _oo2_statistics(-2.3)
+    p_int, _ = _oo2_statistics(-1.65)
+    assert p_int >= p_poor
+
+
+@pytest.mark.xfail(reason="known defect (issue 13): the model's <Pc>/<Pab> of a very blue HB is ~0.55 at every [Fe/H] "
+                          "(the crossing tracks do not climb towards the AGB more steeply at higher Z)", strict=False)
+def test_oosterhoff_ii_rrc_to_rrab_period_ratio_falls_with_metallicity():
+    # <Pc>/<Pab> observed: M92 0.36/0.630 = 0.571 (Kopacki 2001); M22 0.33/0.66 = 0.50 (Kunder et al. 2013);
+    # M2 0.333/0.685 = 0.486 (Lee & Carney 1999): at intermediate [Fe/H] the RRab of a blue HB are brighter
+    # relative to its RRc (the tracks climb towards the AGB as they cross the strip).  The model with a
+    # Z-independent crossing gave 0.55 at both metallicities
+    pab_poor, pc_poor = _oo2_statistics(-2.3)
+    pab_int, pc_int = _oo2_statistics(-1.65)
+    assert pc_poor / pab_poor - pc_int / pab_int >= 0.02
+
+
 # ----------------------------------------------------------------------------- held-out clusters
 def _check_cluster(name):
     from hbmodel.calibration.benchmark import _clusters, _globular
@@ -200,8 +236,9 @@ def _check_cluster(name):
 
 # held-out Oosterhoff II clusters (values in tables/targets/clusters.ecsv): M92 Kopacki 2001, A&A 369, 862 (abstract:
 # <Pc> 0.36 d, 11 RRab + 6 RRc); M2 Lee & Carney 1999, AJ 117, 2868 (abstract: <Pc> 0.333 d, n(c)/n(ab+c) = 0.40);
-# M22 Kunder et al. 2013, AJ 146, 119 (abstract: <Pc> 0.33 d, N1/NRR = 0.61)
-@pytest.mark.parametrize("name", ["M92 (NGC 6341)", "M2 (NGC 7089)", "M22 (NGC 6656)"])
+# M22 Kunder et al. 2013, AJ 146, 119 (abstract: <Pc> 0.33 d, N1/NRR = 0.61); M9 Clement & Shelton 1996, AJ 112, 618
+# (abstract: 8 RRab + 9 RRc, <Pc> 0.342 d)
+@pytest.mark.parametrize("name", ["M92 (NGC 6341)", "M2 (NGC 7089)", "M22 (NGC 6656)", "M9 (NGC 6333)"])
 @pytest.mark.parametrize("quantity, tol", [
     # before the strip calibration the model's RRc periods were 0.03-0.05 d short in every cluster
     ("pc_mean", 0.03),
@@ -214,14 +251,21 @@ def test_held_out_oosterhoff_ii_cluster(name, quantity, tol):
     assert abs(p[quantity] - q[quantity][0]) <= tol
 
 
-@pytest.mark.xfail(reason="known defect (issue 13): 3 of 5 benchmark clusters with >= 10 RRab pass (M53, M5, M22); "
-                          "M92 (<Pab> 0.682 vs 0.630 d) and M2 (<Pab> 0.626 vs 0.685 d) fail on the period only "
-                          "(RRc fractions 0.49 vs 0.35 and 0.51 vs 0.40 are within 0.15): the model's Oosterhoff II "
-                          "<Pab> falls with [Fe/H] while the observed one rises", strict=False)
+def test_held_out_ngc5286_rrc_fraction():
+    # Zorotovic et al. 2010, AJ 139, 357 (arXiv:0911.1686, abstract): 30 RRab + 22 RRc, N(c)/N(RR) = 0.42 at
+    # [Fe/H] -1.67 and HB ratio 0.80 (Harris 1996 via the gclusters database); issue 13 tolerance
+    q, p = _check_cluster("NGC 5286")
+    assert abs(p["f_rrc"] - q["f_rrc"][0]) <= 0.15
+
+
+@pytest.mark.xfail(reason="known defect (issue 13): 3 of 6 benchmark clusters with >= 10 RRab pass (M53, M5, M22); "
+                          "M92 (<Pab> 0.682 vs 0.630 d), M2 (0.627 vs 0.685 d) and NGC 5286 (0.602 vs 0.656 d) fail on "
+                          "the period only (their RRc fractions are within 0.15): the model's Oosterhoff II <Pab> "
+                          "falls with [Fe/H] while the observed one does not", strict=False)
 def test_oosterhoff_criterion_80_percent_of_rr_rich_clusters():
     # issue 13 criterion: <Pab> within 0.03 d and f_c within 0.15 for >= 80% of the clusters with >= 10 RRab
     # (tables/targets/clusters.ecsv: M92 Kopacki 2001; M53 arXiv:2601.03758; M22 Kunder et al. 2013; M2 Lee &
-    # Carney 1999; M5 Kaluzny et al. 2000), eta fitted to each HB ratio
+    # Carney 1999; M5 Kaluzny et al. 2000; NGC 5286 Zorotovic et al. 2010), eta fitted to each HB ratio
     from hbmodel.calibration.benchmark import oosterhoff_criterion, run_benchmark
     n_ok, n, _ = oosterhoff_criterion([r for r in run_benchmark() if r.kind == "GC"])
     assert n >= 5 and n_ok >= 0.8 * n

@@ -127,7 +127,12 @@ def test_same_generator_state_same_stars_and_rng_required():
     b = s.draw(300, np.random.default_rng(7), distance_modulus=14.0, ebv=0.1)
     for k in a:
         assert np.array_equal(a[k], b[k], equal_nan=True), k
+    # an integer seed is the same stream as a Generator made from it (core.randomness convention) ...
+    c = s.draw(300, 7, distance_modulus=14.0, ebv=0.1)
+    for k in a:
+        assert np.array_equal(a[k], c[k], equal_nan=True), k
+    # ... and no hidden state: None is refused
     with pytest.raises(ValueError, match="Generator"):
-        s.draw(300, 7)
+        s.draw(300, None)
     with pytest.raises(ValueError, match="positive"):
         s.draw(0, np.random.default_rng(1))

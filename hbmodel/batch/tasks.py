@@ -95,8 +95,8 @@ def distance_task(job: dict, job_dir) -> dict:
     feh = _f(job, "feh")
     ml = MassLoss.from_eta(_f(job, "eta", 0.3), 0.03)
     if _f(job, "age_min", None) is not None and _f(job, "age_max", None) is not None:
-        ages = np.geomspace(_f(job, "age_min"), _f(job, "age_max"), 8)
-        pop = Population.from_history(ages, np.gradient(ages), feh, alpha_fe=_f(job, "alpha_fe", 0.0), mass_loss=ml)
+        pop = Population.constant_star_formation(_f(job, "age_min"), _f(job, "age_max"), feh,
+                                                 alpha_fe=_f(job, "alpha_fe", 0.0), mass_loss=ml)
     else:
         pop = Population(feh, _f(job, "age"), alpha_fe=_f(job, "alpha_fe", 0.0), mass_loss=ml)
     err = np.asarray(t[f"{band}_err"], float) if f"{band}_err" in t.colnames else None

@@ -54,8 +54,9 @@ def _clusters():
     t = read_clusters()
     out = {}
     for r in t:
-        d = out.setdefault(r["name"], {"kind": r["kind"], "role": r["role"], "q": {}})
+        d = out.setdefault(r["name"], {"kind": r["kind"], "role": r["role"], "q": {}, "roles": {}})
         d["q"][r["quantity"]] = (float(r["value"]), float(r["uncertainty"]))
+        d["roles"][r["quantity"]] = r["role"]
     return out
 
 
@@ -112,14 +113,15 @@ def _globular(name: str):
 def cluster_rows(role: str = "fit", quantities=("pab_mean", "pc_mean", "f_rrc")) -> list[dict]:
     """Target rows of ``role`` globular clusters for ``quantities`` (with [Fe/H] and an HB ratio), as
     dicts with ``id``, ``cluster``, ``quantity``, ``model_quantity``, ``value`` and ``uncertainty``.
-    Used by the calibration stage that fits the instability strip; ``check`` clusters are never fitted."""
+    Used by the calibration stage that fits the instability strip; ``check`` rows are never fitted: a row is
+    returned only when its own role is ``role`` (a held-out row of a 'fit' cluster stays held out)."""
     out = []
     for name, d in _clusters().items():
         q = d["q"]
-        if d["kind"] != "GC" or d["role"] != role or "feh" not in q or "hb_ratio" not in q:
+        if d["kind"] != "GC" or "feh" not in q or "hb_ratio" not in q:
             continue
         for k in quantities:
-            if k in q:
+            if k in q and d["roles"][k] == role:
                 out.append({"id": f"{name}: {k}", "cluster": name, "quantity": k, "role": role,
                             "model_quantity": _MODEL_QUANTITY.get(k, k),
                             "value": q[k][0], "uncertainty": q[k][1]})

@@ -3,10 +3,11 @@ from __future__ import annotations
 
 import argparse
 import sys
-import json
 import math
 
 import numpy as np
+
+from hbmodel.core.files import json_text
 
 
 def toml_parser():
@@ -55,6 +56,16 @@ def renamed_config_keys(parser: argparse.ArgumentParser) -> dict:
     return out
 
 
+def _law_name(text: str) -> str:
+    """``--law``: the name of a row of tables/mass_loss_laws.csv (checked at parse time, so that a config-file
+    value is named by its key)."""
+    from hbmodel.physics.mass_loss import check_law
+    try:
+        return check_law(text.strip())
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
 def add_population_arguments(p: argparse.ArgumentParser, *, mass_loss_required=True, age_required=True):
     g = p.add_argument_group("population")
     g.add_argument("--feh", type=float, required=True, help="[Fe/H] (dex), -2.5 ... +0.5")
@@ -71,8 +82,8 @@ def add_population_arguments(p: argparse.ArgumentParser, *, mass_loss_required=T
     m.add_argument("--eta-sd", type=float, default=0.0, help="star-to-star Gaussian spread in eta")
     one.add_argument("--mass-loss", type=float, default=None, help="mean integrated RGB mass loss (Msun)")
     m.add_argument("--mass-loss-sd", type=float, default=0.0, help="star-to-star spread of the loss (Msun)")
-    m.add_argument("--law", choices=("reimers", "schroeder_cuntz"), default="reimers",
-                   help="mass-loss law (default reimers)")
+    m.add_argument("--law", default="reimers", type=_law_name,
+                   help="mass-loss law, a row of tables/mass_loss_laws.csv: reimers (default), schroeder_cuntz")
     one.add_argument("--hb-masses", default=None, metavar="FILE",
                    help="user HB-mass distribution: a table with a 'mass' column (replaces --eta/--mass-loss)")
     p.set_defaults(_mass_loss_required=mass_loss_required)
@@ -115,26 +126,9 @@ def population_from_args(args, mass_loss=None):
                       helium_enriched_fraction=args.helium_enriched_fraction, helium_delta_y=args.delta_y)
 
 
-def to_jsonable(obj):
-    """Convert numpy scalars/arrays and NaN to JSON-friendly values (NaN -> None)."""
-    if isinstance(obj, dict):
-        return {str(k): to_jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [to_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [to_jsonable(v) for v in obj.tolist()]
-    if isinstance(obj, (np.floating, float)):
-        v = float(obj)
-        return v if math.isfinite(v) else None
-    if isinstance(obj, (np.integer,)):
-        return int(obj)
-    if isinstance(obj, np.bool_):
-        return bool(obj)
-    return obj
-
-
 def dumps(obj) -> str:
-    return json.dumps(to_jsonable(obj), indent=2, sort_keys=True, allow_nan=False)
+    """The JSON printed by the commands (:func:`hbmodel.core.files.json_text`)."""
+    return json_text(obj, ensure_ascii=True)
 
 
 def parse_mapping(text, what, *, numeric=False):

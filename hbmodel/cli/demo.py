@@ -44,9 +44,8 @@ def _population(s):
     from hbmodel.populations.population import MassLoss, Population
     ml = MassLoss.from_eta(s["eta"], s["eta_sd"])
     if "age_range" in s:
-        ages = np.geomspace(*s["age_range"], 8)
-        return Population.from_history(ages, np.gradient(ages), s["feh"], alpha_fe=s.get("alpha_fe", 0.0),
-                                       mass_loss=ml)
+        return Population.constant_star_formation(*s["age_range"], s["feh"], alpha_fe=s.get("alpha_fe", 0.0),
+                                                  mass_loss=ml)
     return Population(s["feh"], s["age"], alpha_fe=s["alpha_fe"], mass_loss=ml)
 
 

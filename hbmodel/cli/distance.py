@@ -55,8 +55,7 @@ def _population(feh, alpha, age, age_range, eta):
         a = parse_range(age_range.replace(":", ",") if age_range.count(":") == 1 else age_range, "--age-range")
         if len(a) != 2 or a[0] >= a[1]:
             raise ValueError("--age-range must be A1:A2 with A1 < A2")
-        ages = np.geomspace(a[0], a[1], 8)
-        return Population.from_history(ages, np.gradient(ages), feh, alpha_fe=alpha, mass_loss=ml)
+        return Population.constant_star_formation(a[0], a[1], feh, alpha_fe=alpha, mass_loss=ml)
     if age is None:
         raise ValueError("give --age or --age-range")
     return Population(feh, age, alpha_fe=alpha, mass_loss=ml)

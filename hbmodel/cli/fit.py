@@ -55,20 +55,9 @@ def add_arguments(p):
     p.add_argument("--out", default=None, metavar="DIR", help="write result.json, posterior.ecsv and plots")
     p.add_argument("--force", action="store_true", help="allow writing into a non-empty --out directory")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--quiet", action="store_true", help="no progress bar for the emcee chain (shown on a terminal)")
     from hbmodel.cli.fit_counts import add_counts_arguments
     add_counts_arguments(p)  # --counts FILE: eta from catalogue numbers (makes --feh/--age optional)
-
-
-def _columns(text):
-    if not text:
-        return None
-    out = {}
-    for item in str(text).split(","):
-        if "=" not in item:
-            raise ValueError(f"--columns entries must be NAME=column (got {item!r})")
-        k, v = (s.strip() for s in item.split("=", 1))
-        out[k] = v
-    return out
 
 
 def run(args):
@@ -78,7 +67,7 @@ def run(args):
     from hbmodel.populations.population import Population
     from hbmodel.core.quantities import unit_of
     from hbmodel.outputs.reports import format_interval
-    from hbmodel.cli.common import canonical_columns, colour_of, dumps, parse_floats
+    from hbmodel.cli.common import canonical_columns, colour_of, dumps, parse_floats, parse_mapping
     from hbmodel.cli.fit_counts import require_population, run_counts
     if args.counts is not None:
         return run_counts(args)
@@ -112,7 +101,7 @@ def run(args):
     # read everything before touching the output directory
     cat = None
     if args.catalog is not None:
-        cols = canonical_columns(_columns(args.columns))
+        cols = canonical_columns(parse_mapping(args.columns, "--columns") or None)
         cat = read_catalog(args.catalog, columns=cols, required=list(bands) + [f"{b}_err" for b in bands])
     masses = read_catalog(args.masses, required=("mass", "mass_err")) if args.masses else None
     if cat is not None and args.distance_modulus is None:
@@ -127,7 +116,8 @@ def run(args):
     est = MassLossFit(pop, pri, args.model, bands=bands, colour=colour, region=region,
                       zero_points=not args.no_zero_points,
                       sampler=args.sampler, compare_models=not args.no_compare and cat is not None,
-                      max_steps=args.max_steps, seed=args.seed)
+                      max_steps=args.max_steps, seed=args.seed,
+                      progress=False if args.quiet else None)
     est.fit(cat, masses)
     res = est.result()
     if args.out:

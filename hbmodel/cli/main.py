@@ -11,16 +11,20 @@ reported as one line on stderr with exit status 2 -- never a traceback.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import importlib
 import sys
 
 from hbmodel.core.version import __version__
+from hbmodel.core.messages import first_line
 from hbmodel.cli.common import add_resource_arguments, renamed_config_keys, toml_parser, warn_renamed
 
 #: Sub-command modules, in the order ``hbmodel --help`` lists them.
 COMMANDS = ("predict", "mock", "fit", "distance", "classify", "batch", "demo")
 
 EXIT_USAGE = 2
+EXIT_INTERRUPTED = 130  # 128 + SIGINT, as shells report a Ctrl-C (common practice)
+EXIT_BROKEN_PIPE = 141  # 128 + SIGPIPE, as shells report a closed pipe (common practice)
 
 
 class UserError(Exception):
@@ -130,13 +134,15 @@ def _check_exclusive(sub: argparse.ArgumentParser, argv: list[str], cfg: dict) -
             raise UserError(f"{names} are mutually exclusive: got {' and '.join(given)}")
 
 
-def build_parser() -> tuple[argparse.ArgumentParser, dict]:
+def build_parser(only: str | None = None) -> tuple[argparse.ArgumentParser, dict]:
+    """The ``hbmodel`` parser and ``{name: (module, sub-parser)}``; ``only`` (a command name): that command's
+    sub-parser alone, so a run imports one command module, not all of them."""
     parser = _Parser(prog="hbmodel", description="hbmodel: horizontal-branch and red-clump modelling — predict, "
                      "mock, fit mass loss, clump distances.")
     parser.add_argument("--version", action="version", version=f"hbmodel {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     modules = {}
-    for name in COMMANDS:
+    for name in COMMANDS if only not in COMMANDS else (only,):
         mod = importlib.import_module(f"hbmodel.cli.{name}")
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP),
                            formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -149,11 +155,71 @@ def build_parser() -> tuple[argparse.ArgumentParser, dict]:
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run the ``hbmodel`` command line ``argv`` (default: the process's own arguments); the exit status."""
+    if argv is None:
+        status = _main_process()
+    else:
+        status = _main(argv)
+    if argv is None:
+        # The process ends next.  Interpreter shutdown runs the cycle collector over every object still
+        # alive (numpy's and pyarrow's modules among them: 0.1-0.2 s measured on the 2-core machine); frozen,
+        # they are left to the process's end.  Outputs are closed by now (written atomically) and the
+        # interpreter flushes the standard streams itself.  Not done for in-process calls (tests).
+        import gc
+        gc.freeze()
+    return status
+
+
+def _main_process() -> int:
+    """:func:`_main` for the process's own arguments, with Ctrl-C made reliable.
+
+    A ``KeyboardInterrupt`` raised while a compiled extension module is being imported can be lost
+    inside that module's initialisation (seen on the 2-core machine, about 1 run in 15, with the
+    interrupt landing in numpy.random's import), and the run would carry on as if never interrupted.
+    So every SIGINT is also recorded: a run that was interrupted ends with the one line and exit
+    status 130 even if its ``KeyboardInterrupt`` went missing.  Once the interrupt has been handled,
+    further SIGINTs are ignored, so that a second Ctrl-C cannot kill the process while it exits
+    (a killed process has no exit status 130 and may print a traceback)."""
+    import signal
+    import threading
+
+    seen: list[int] = []
+
+    def on_sigint(signum, frame):
+        seen.append(signum)
+        raise KeyboardInterrupt
+
+    managed = (threading.current_thread() is threading.main_thread()
+               and signal.getsignal(signal.SIGINT) is signal.default_int_handler)  # not if SIGINT is ignored
+    if managed:
+        signal.signal(signal.SIGINT, on_sigint)
+        # Once interrupted, a worker pool's bookkeeping thread (joblib/loky's executor manager) can trip
+        # over the jobs the interrupt cancelled (KeyError in its queue of pending items, seen in CI about
+        # 1 run in 20) and Python would print that thread's traceback before our one line.  Such
+        # after-the-interrupt failures of background threads are expected and kept quiet; any other
+        # thread failure is reported as Python reports it.
+        default_hook = threading.excepthook
+
+        def on_thread_error(args):
+            if not seen:
+                default_hook(args)
+
+        threading.excepthook = on_thread_error
+    status = _main(None)
+    if managed and seen:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        if status != EXIT_INTERRUPTED:
+            print("hbmodel: interrupted", file=sys.stderr)
+            status = EXIT_INTERRUPTED
+    return status
+
+
+def _main(argv: list[str] | None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     try:
-        parser, modules = build_parser()
         # First pass: find the command and a possible --config file.
         command = argv[0] if argv and not argv[0].startswith("-") else None
+        parser, modules = build_parser(only=command)
         if command in modules:
             mod, sub = modules[command]
             cfg_path = _find_config(argv)
@@ -170,20 +236,32 @@ def main(argv: list[str] | None = None) -> int:
         return int(mod.run(args) or 0)
     except SystemExit as exc:  # argparse's own exits (help, usage errors)
         return int(exc.code or 0) if not isinstance(exc.code, str) else EXIT_USAGE
+    except BrokenPipeError:
+        # the reader of our output went away (e.g. `hbmodel predict --json | head`): stop quietly, as the
+        # standard tools do; stdout is pointed at /dev/null so that the interpreter's final flush is silent
+        # (Python documentation, "Note on SIGPIPE")
+        import os
+        with contextlib.suppress(OSError, ValueError):
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_BROKEN_PIPE
     except (UserError, ValueError, OSError, KeyError) as exc:
-        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        msg = first_line(exc) or type(exc).__name__
         if isinstance(exc, KeyError):
             msg = f"missing key or column: {msg}"
         print(f"hbmodel: error: {msg}", file=sys.stderr)
         return EXIT_USAGE
     except KeyboardInterrupt:
+        if argv is None:  # the process's own run: the interrupt is handled, a second one is a no-op
+            import signal
+            with contextlib.suppress(ValueError):  # ValueError: not the main thread
+                signal.signal(signal.SIGINT, lambda signum, frame: None)
         print("hbmodel: interrupted", file=sys.stderr)
-        return 130
+        return EXIT_INTERRUPTED
     except Exception as exc:  # an unexpected failure: still one line (set HBMODEL_DEBUG=1 for the traceback)
         import os
         if os.environ.get("HBMODEL_DEBUG"):
             raise
-        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+        msg = first_line(exc)
         print(f"hbmodel: internal error ({type(exc).__name__}): {msg} -- please report it; "
               f"HBMODEL_DEBUG=1 shows the traceback", file=sys.stderr)
         return 1

@@ -136,10 +136,20 @@ def run(args):
     if args.plot:                                   # is left behind by a refused plot
         check_output_file(args.plot, force=args.force)
     rng = np.random.default_rng(args.seed)
+    what = f"--window {window[0]}:{window[1]:g}:{window[2]:g}" if window else "the completeness limit"
+    from hbmodel.observation.mock import EmptyMockError, streams_to_parquet, write_mock_parquet
+    if str(args.out).lower().endswith(".parquet") and not args.plot and streams_to_parquet(obs, bands):
+        # the same file, written a row group at a time while the rest of the stars are computed
+        try:
+            counts, _meta = write_mock_parquet(pop, bands=bands, rng=rng, path=args.out, n_hb=args.n_hb,
+                                               total_mass_msun=args.total_mass, obs=obs, force=args.force)
+        except EmptyMockError:
+            raise ValueError(f"no star survives {what}: the mock would be empty (nothing written)") from None
+        _report(args.out, counts)
+        return 0
     data, meta = make_mock_arrays(pop, bands=bands, rng=rng, n_hb=args.n_hb, total_mass_msun=args.total_mass,
                                   obs=obs)
     if len(data["phase"]) == 0:
-        what = f"--window {window[0]}:{window[1]:g}:{window[2]:g}" if window else "the completeness limit"
         raise ValueError(f"no star survives {what}: the mock would be empty (nothing written)")
     table = None
     if str(args.out).lower().endswith(".parquet"):  # straight from the arrays (phase as categories)
@@ -159,7 +169,11 @@ def run(args):
         else:
             fig, _ = plot_luminosity_function(table, bands[0], title=title)
         save_figure(fig, args.plot, force=args.force, pdf=False)
-    counts = dict(zip(PHASE_NAMES, np.bincount(data["phase"], minlength=len(PHASE_NAMES)).tolist()))
-    print(f"wrote {len(data['phase'])} stars to {args.out} "
-          + ", ".join(f"{k}={v}" for k, v in counts.items() if v))
+    _report(args.out, np.bincount(data["phase"], minlength=len(PHASE_NAMES)))
     return 0
+
+
+def _report(out, counts):
+    from hbmodel.observation.mock import PHASE_NAMES
+    counts = dict(zip(PHASE_NAMES, np.asarray(counts).tolist()))
+    print(f"wrote {sum(counts.values())} stars to {out} " + ", ".join(f"{k}={v}" for k, v in counts.items() if v))

@@ -14,10 +14,11 @@ from __future__ import annotations
 
 import hashlib
 import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
+
+from hbmodel.core.files import atomic_path
 
 __all__ = ["cache_dir", "cached_array", "MAX_BYTES"]
 
@@ -91,14 +92,8 @@ def cached_array(kind: str, key, compute, *, limit: int | None = None) -> np.nda
     if directory is not None:
         try:
             directory.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(dir=directory, prefix=f".{name}.", suffix=".part")
-            try:
-                with os.fdopen(fd, "wb") as fh:
-                    np.save(fh, arr, allow_pickle=False)
-                os.replace(tmp, directory / name)
-            finally:
-                if os.path.exists(tmp):
-                    os.unlink(tmp)
+            with atomic_path(directory / name) as tmp, open(tmp, "wb") as fh:
+                np.save(fh, arr, allow_pickle=False)
             _prune(directory, MAX_BYTES if limit is None else int(limit))
         except OSError:
             pass

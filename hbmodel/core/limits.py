@@ -33,9 +33,10 @@ __all__ = ["ResourceError", "Estimate", "parse_size", "format_size", "available_
 
 #: Default largest number of model populations in one prediction grid (about 10 minutes).
 MAX_MODELS = 10000
-#: Memory of a Python process running hbmodel before any star is made (interpreter, numpy, astropy,
-#: the population's look-up tables), rounded up from a measured ~200 MB.
-BASE_MEMORY_BYTES = 300 * 2**20
+#: Memory of a Python process running hbmodel before any star is made (interpreter, numpy, pyarrow or
+#: astropy, the population's look-up tables), rounded up from measured peaks: a 10-HB-star mock 92 MB
+#: (132 MB while the start-up path imported scipy), ``distance`` of a 400-HB-star catalogue 122 MB.
+BASE_MEMORY_BYTES = 200 * 2**20
 #: Fractions of the machine's available memory / free disk that a run may use by default.
 MEMORY_FRACTION = 0.8
 DISK_FRACTION = 0.9

@@ -1,7 +1,7 @@
 """Names, units and axis labels of the quantities hbmodel reports (one table for figures and reports)."""
 from __future__ import annotations
 
-__all__ = ["QUANTITIES", "unit_of", "text_label", "axis_label"]
+__all__ = ["QUANTITIES", "unit_of", "text_label", "axis_label", "in_unit"]
 
 #: key -> (plain-text name, unit or "" for dimensionless, TeX axis symbol)
 QUANTITIES = {
@@ -57,3 +57,21 @@ def axis_label(key: str) -> str:
     if q is None:
         return key.replace("_", " ")
     return f"{q[2]} [{_TEX_UNITS.get(q[1], q[1])}]" if q[1] else q[2]
+
+
+def in_unit(value, unit: str, name: str) -> float:
+    """``value`` as a plain float in ``unit`` (astropy unit string, e.g. "Gyr", "mag"): an astropy
+    ``Quantity`` is converted (``12 * u.Gyr``, ``12000 * u.Myr``), a plain number is taken to be in ``unit``
+    already (the ``_gyr``/``_mag`` names say which).  One-line ValueError for an incompatible unit or a
+    non-scalar.  The API edge of hbmodel: inside, every quantity is a float in the unit its name states."""
+    if hasattr(value, "unit") and hasattr(value, "to_value"):
+        try:
+            out = value.to_value(unit)
+        except Exception:
+            raise ValueError(f"{name} must be in units convertible to {unit} (got {value.unit})") from None
+    else:
+        out = value
+    try:
+        return float(out)
+    except (TypeError, ValueError):
+        raise ValueError(f"{name} must be a number (in {unit}), got {value!r}") from None

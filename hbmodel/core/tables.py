@@ -23,7 +23,7 @@ from types import MappingProxyType
 
 import numpy as np
 
-__all__ = ["read_table", "table_header", "table_text", "pchip_rows", "table_cache", "trial_tables"]
+__all__ = ["read_table", "table_header", "table_text", "pchip_rows", "table_cache", "trial_tables", "shipped_tables"]
 
 _EMPTY = MappingProxyType({})
 _TRIAL: contextvars.ContextVar = contextvars.ContextVar("hbmodel_trial_tables", default=(0, _EMPTY))
@@ -50,6 +50,11 @@ def table_text(name: str) -> str:
 def _key() -> int:
     """Cache key of the active trial block (0 = the shipped tables)."""
     return _TRIAL.get()[0]
+
+
+def shipped_tables() -> bool:
+    """True unless a :func:`trial_tables` block is active (what an on-disk cache may store)."""
+    return _key() == 0
 
 
 @contextlib.contextmanager
@@ -106,8 +111,9 @@ def table_header(name: str) -> str:
 def pchip_rows(name: str, xcol: str, ycol: str, log_x: bool = True, log_y: bool = False):
     """Per-[M/H] monotone (PCHIP) interpolants of ``ycol`` against ``xcol`` in a long-format table.
 
-    Returns ``(mh_values, interpolants, x_min, x_max)``; each row must share the same x grid."""
-    from scipy.interpolate import PchipInterpolator
+    Returns ``(mh_values, interpolants, x_min, x_max)``; each row must share the same x grid.
+    The interpolants are :class:`hbmodel.core.numerics.Pchip` (NaN outside the grid)."""
+    from hbmodel.core.numerics import Pchip
     t = read_table(name)
     mhs = np.unique(t["mh"])
     rows = []
@@ -115,6 +121,6 @@ def pchip_rows(name: str, xcol: str, ycol: str, log_x: bool = True, log_y: bool 
         sel = t["mh"] == m
         x = np.log10(t[xcol][sel]) if log_x else t[xcol][sel]
         y = np.log10(t[ycol][sel]) if log_y else t[ycol][sel]
-        rows.append(PchipInterpolator(x, y, extrapolate=False))
+        rows.append(Pchip(x, y, extrapolate=False))
     xs = t[xcol][t["mh"] == mhs[0]]
     return mhs, tuple(rows), float(xs.min()), float(xs.max())

@@ -23,3 +23,14 @@ def check_range(x, name: str, lo: float, hi: float, *, what: str = "calibrated r
         bad = arr.min() if arr.min() < lo else arr.max()
         raise ValueError(f"{name} = {bad:g} is outside the {what} [{lo:g}, {hi:g}]")
     return arr
+
+
+def check_interval(pair, name: str, lo_name: str = "lo", hi_name: str = "hi") -> tuple[float, float]:
+    """``(lo, hi)`` floats of a two-number interval, finite with ``hi > lo`` (ValueError naming ``name``)."""
+    try:
+        lo, hi = (float(v) for v in pair)
+    except (TypeError, ValueError):
+        raise ValueError(f"{name} must be a pair ({lo_name}, {hi_name}), got {pair!r}") from None
+    if not (np.isfinite(lo) and np.isfinite(hi) and hi > lo):
+        raise ValueError(f"{name} must be finite with {lo_name} < {hi_name} (hi > lo), got {pair!r}")
+    return lo, hi

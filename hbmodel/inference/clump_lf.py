@@ -22,6 +22,9 @@ a window narrower or wider than the calibrated range raises ``ValueError``.
 Uncertainties: inverse of a central finite-difference Hessian of ``-ln L`` at the optimum (parameters
 sitting on a bound are held fixed and get NaN errors) and, optionally, a nonparametric bootstrap of the
 stars in the window (Efron 1979, Ann. Stat. 7, 1).
+
+Size (580+ lines): one estimator (mixture density with its analytic gradient, optimisation, result object); the
+analytic gradient is most of it.
 """
 from __future__ import annotations
 
@@ -33,6 +36,9 @@ import numpy as np
 from scipy import ndimage, optimize, special
 from threadpoolctl import threadpool_limits
 
+from hbmodel.core.validation import check_interval
+from hbmodel.core.files import to_jsonable
+from hbmodel.core.hessian import hessian
 from hbmodel.core.tables import read_table
 
 __all__ = ["ClumpLFResult", "fit_clump_lf"]  # its figure: hbmodel.outputs.plots.plot_clump_lf
@@ -302,16 +308,6 @@ def _minimise(model: _Model, m: np.ndarray, starts: list[np.ndarray]):
     return best
 
 
-def _hessian(grad, x: np.ndarray, free: np.ndarray, steps: np.ndarray) -> np.ndarray:
-    """Central finite differences of the analytic gradient over the ``free`` coordinates, symmetrised."""
-    idx = np.flatnonzero(free)
-    h = np.zeros((idx.size, idx.size))
-    for a, i in enumerate(idx):
-        e = np.zeros_like(x); e[i] = steps[i]
-        h[:, a] = (grad(x + e)[idx] - grad(x - e)[idx]) / (2.0 * steps[i])
-    return 0.5 * (h + h.T)
-
-
 def _covariance(model: _Model, m: np.ndarray, theta: np.ndarray) -> tuple[np.ndarray, bool]:
     span = model.upper - model.lower
     dist = np.minimum(theta - model.lower, model.upper - theta)
@@ -323,7 +319,7 @@ def _covariance(model: _Model, m: np.ndarray, theta: np.ndarray) -> tuple[np.nda
     cov = np.full((ncov, ncov), np.nan)
     if not free.any():
         return cov, False
-    h = _hessian(lambda t: model.nll_grad(t, m)[1], theta, free, steps)
+    h = hessian(theta, steps, grad=lambda t: model.nll_grad(t, m)[1], free=free)
     try:
         c = np.linalg.inv(h)
     except np.linalg.LinAlgError:
@@ -342,22 +338,6 @@ def _covariance(model: _Model, m: np.ndarray, theta: np.ndarray) -> tuple[np.nda
 # --------------------------------------------------------------------------------------------------
 # result
 # --------------------------------------------------------------------------------------------------
-def _jsonable(x: Any) -> Any:
-    if isinstance(x, dict):
-        return {k: _jsonable(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_jsonable(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return _jsonable(x.tolist())
-    if isinstance(x, (np.floating, float)):
-        return None if not math.isfinite(float(x)) else float(x)
-    if isinstance(x, (np.integer,)):
-        return int(x)
-    if isinstance(x, np.bool_):
-        return bool(x)
-    return x
-
-
 @dataclasses.dataclass(frozen=True)
 class ClumpLFResult:
     """Outcome of :func:`fit_clump_lf` (magnitudes in the band of the input catalogue).
@@ -405,7 +385,7 @@ class ClumpLFResult:
     def to_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (NaN -> None, arrays -> lists)."""
         d = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
-        return _jsonable(d)
+        return to_jsonable(d)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -480,8 +460,8 @@ def _fit_clump_lf(mag, *, mag_range, components, n_boot, rng, peak_guess, backgr
     if n_boot > 0:
         if rng is None:
             raise ValueError("n_boot > 0 needs rng (a numpy.random.Generator or an integer seed)")
-        if not isinstance(rng, np.random.Generator):
-            rng = np.random.default_rng(rng)
+        from hbmodel.core.randomness import as_generator
+        rng = as_generator(rng)
 
     if mag_range is None:
         if peak_guess is None:
@@ -494,12 +474,7 @@ def _fit_clump_lf(mag, *, mag_range, components, n_boot, rng, peak_guess, backgr
         lo = max(float(peak_guess) - hw, float(m_all.min()))
         hi = min(float(peak_guess) + hw, float(m_all.max()))
     else:
-        try:
-            lo, hi = (float(v) for v in mag_range)
-        except (TypeError, ValueError):
-            raise ValueError(f"mag_range must be a pair (m_lo, m_hi), got {mag_range!r}") from None
-        if not (math.isfinite(lo) and math.isfinite(hi) and hi > lo):
-            raise ValueError(f"mag_range must be finite with m_lo < m_hi, got {mag_range!r}")
+        lo, hi = check_interval(mag_range, "mag_range", "m_lo", "m_hi")
     width = hi - lo
     if not pr["window_min_mag"] <= width <= pr["window_max_mag"]:
         raise ValueError(f"fit window width {width:g} mag is outside the calibrated range "

@@ -29,6 +29,9 @@ reference recalled from memory) of the deviance.
 Hierarchical summary (:func:`hierarchical_eta`): the population mean and scatter of eta across
 clusters, from the per-cluster posterior samples (drawn under a flat eta prior) by importance
 reweighting (e.g. Hogg, Myers & Bovy 2010, ApJ 725, 2166, eq. 9; reference recalled from memory).
+
+Size (920+ lines): one estimator pipeline (counts input, emulator of ``predict``, likelihood, emcee fit, hierarchical
+summary, batch task, simulation-based calibration) in marked sections sharing the emulator's private helpers.
 """
 from __future__ import annotations
 

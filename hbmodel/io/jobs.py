@@ -42,6 +42,9 @@ Parallelism is joblib's (``n_jobs`` local processes, loky backend); with
 Dask distributed cluster through joblib's Dask backend.  On a multi-machine
 cluster ``out_dir`` and the catalogues must be on a file system that every
 worker sees, and hbmodel must be installed on the workers.
+
+Size (910+ lines): the batch engine is one unit (job tables and their validation, local/Dask execution, resumable
+records, chunked Parquet output) whose private helpers serve both ``run_batch`` and ``run_chunked``.
 """
 from __future__ import annotations
 
@@ -52,8 +55,6 @@ import json
 import math
 import os
 import pathlib
-import sys
-import tempfile
 import time
 import traceback
 import zlib
@@ -61,6 +62,10 @@ from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
+
+from hbmodel.core.files import atomic_path, json_text
+from hbmodel.core.messages import compact, describe_exception
+from hbmodel.core.progress import progress_bar
 
 __all__ = ["read_jobs", "validate_jobs", "run_batch", "run_chunked", "job_seed", "flatten_result", "JobColumn", "JobSchema",
            "as_float", "as_int", "as_text", "file_digest"]
@@ -78,54 +83,25 @@ _INTERVAL_KEYS = ("median", "lo", "hi")
 
 
 # --------------------------------------------------------------------------- helpers
-def _one_line(text: str, limit: int = 300) -> str:
-    text = " ".join(str(text).split())
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
 def _reason(exc: BaseException) -> str:
-    msg = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
-    return _one_line(f"{type(exc).__name__}: {msg}" if msg else type(exc).__name__)
+    return compact(describe_exception(exc))
 
 
 def _atomic_write_bytes(path: pathlib.Path, data: bytes) -> None:
-    from hbmodel.io.catalogues import _umask
-
-    path = pathlib.Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600 files: give the user's usual mode
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise
+    with atomic_path(path) as tmp:
+        tmp.write_bytes(data)
 
 
 def _atomic_write_json(path: pathlib.Path, obj) -> None:
-    _atomic_write_bytes(path, (json.dumps(obj, indent=1, sort_keys=False) + "\n").encode())
+    """A batch record (NaN kept: a failed number stays a number when read back)."""
+    _atomic_write_bytes(path, (json_text(obj, indent=1, sort_keys=False, nan_to_none=False, ensure_ascii=True)
+                               + "\n").encode())
 
 
-@contextlib.contextmanager
 def _atomic_path(path: pathlib.Path):
-    """Yield a temporary path next to ``path``; move it onto ``path`` on success (with the umask's mode)."""
-    from hbmodel.io.catalogues import _umask
-
-    path = pathlib.Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=path.suffix, dir=path.parent)
-    os.close(fd)
-    try:
-        yield pathlib.Path(tmp)
-        os.chmod(tmp, 0o666 & ~_umask())
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise
+    """A temporary path beside ``path`` with its suffix (writers choose the format by it), moved onto ``path``
+    on success."""
+    return atomic_path(path, tmp_suffix=pathlib.Path(path).suffix)
 
 
 def _read_json(path: pathlib.Path):
@@ -289,7 +265,7 @@ def validate_jobs(table, schema: JobSchema, where: str = "jobs table"):
             try:
                 values.append(cols[c].parse(_py(table[c][i])))
             except ValueError as exc:
-                raise ValueError(f"{row}: {_one_line(str(exc))}") from None
+                raise ValueError(f"{row}: {compact(exc)}") from None
             mask.append(False)
         present = [v for v in values if v is not None]
         fill = present[0] if present else ""
@@ -629,15 +605,6 @@ def _parallel_results(parallel, calls):
                 results.close()
 
 
-def _progress_bar(total: int, progress, desc: str):
-    show = sys.stderr.isatty() if progress is None else bool(progress)
-    if not show or total == 0:
-        return None
-    from tqdm.auto import tqdm
-
-    return tqdm(total=total, desc=desc, unit="job", file=sys.stderr, dynamic_ncols=True)
-
-
 def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
               progress: bool | None = None, force: bool = False, input_keys=INPUT_KEYS):
     """Run ``task`` on every job; return the summary table (also written to ``out_dir``).
@@ -682,7 +649,7 @@ def run_batch(jobs, task: Callable, out_dir, *, n_jobs: int = 1, scheduler=None,
         else:
             todo.append(job)
 
-    bar = _progress_bar(len(todo), progress, "hbmodel batch")
+    bar = progress_bar(len(todo), progress, "hbmodel batch", "job")
     try:
         if todo:
             with _executor(n_jobs, scheduler) as nj:
@@ -861,7 +828,7 @@ def _remove_partial_parts(out_dir: pathlib.Path) -> None:
 
 def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *, n_jobs: int = 1,
                 scheduler=None, force: bool = False, seed: int = 0, balanced: bool = False,
-                exact_rows: bool = True) -> list[pathlib.Path]:
+                exact_rows: bool = True, progress: bool | None = None) -> list[pathlib.Path]:
     """Generate a survey-size table in Parquet partitions, one chunk per worker at a time.
 
     ``make_chunk(index, n, seed_sequence_child) -> pyarrow.Table`` builds chunk
@@ -878,6 +845,7 @@ def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *,
     Before each partition is written its worker checks the free disk; if it runs short (or the run is
     interrupted) the run stops with a one-line error, and no partial partition file is left (finished
     partitions stay; a re-run resumes).
+    ``progress``: a bar over the partitions on standard error (None: only when it is a terminal).
     Returns the list of part paths in chunk order.
     """
     import joblib
@@ -924,9 +892,15 @@ def run_chunked(n_total: int, chunk_size: int, make_chunk: Callable, out_dir, *,
                                            return_as="generator_unordered")
                 calls = (joblib.delayed(_write_chunk)(make_chunk, i, sizes[i], children[i], str(paths[i]), exact_rows)
                          for i in todo)
-                with _parallel_results(parallel, calls) as results:
-                    for _ in results:
-                        pass
+                bar = progress_bar(len(todo), progress, "partitions", "part")
+                try:
+                    with _parallel_results(parallel, calls) as results:
+                        for _ in results:
+                            if bar is not None:
+                                bar.update(1)
+                finally:
+                    if bar is not None:
+                        bar.close()
         except BaseException as exc:
             _remove_partial_parts(out_dir)
             if isinstance(exc, ResourceError):

@@ -5,6 +5,9 @@ Pure, vectorised functions on numpy arrays. Magnitudes travel as
 from an explicit :class:`numpy.random.Generator` (an ``int`` seed is accepted
 and turned into one); there is no hidden or global random state, so the same
 generator state always gives the same output.
+
+Size (690+ lines): six short, independent observing effects of one stage (errors, completeness, observation,
+reddening, binaries, field), one marked section each.
 """
 from __future__ import annotations
 
@@ -14,6 +17,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from hbmodel.core.randomness import as_generator
+from hbmodel.core.validation import check_interval
 from hbmodel.core.tables import read_table
 
 __all__ = [
@@ -40,17 +45,6 @@ _CHUNK = 1 << 13  # elements per chunk in the per-star loops (64 kB temporaries 
 # --------------------------------------------------------------------------- #
 # input helpers
 # --------------------------------------------------------------------------- #
-def _rng(rng) -> np.random.Generator:
-    if isinstance(rng, np.random.Generator):
-        return rng
-    if isinstance(rng, (int, np.integer)) and not isinstance(rng, bool):
-        if rng < 0:
-            raise ValueError(f"random seed must be a non-negative integer, got {rng}")
-        return np.random.default_rng(int(rng))
-    raise ValueError("rng must be a numpy.random.Generator or an integer seed "
-                     f"(got {type(rng).__name__}); hbmodel uses no hidden random state")
-
-
 def _count(n, name: str = "n") -> int:
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)):
         raise ValueError(f"{name} must be a positive integer, got {n!r}")
@@ -177,12 +171,11 @@ class ErrorLaw:
             raise ValueError("ErrorLaw needs both table_mag and table_sigma, or neither")
         if self.table_mag is not None:
             m, s = _interp_table(self.table_mag, self.table_sigma, "error-law table", positive=True, hi=None)
-            from scipy.interpolate import PchipInterpolator
+            from hbmodel.core.numerics import Pchip
 
             object.__setattr__(self, "table_mag", m)
             object.__setattr__(self, "table_sigma", s)
-            object.__setattr__(self, "_interp", PchipInterpolator(np.array(m), np.array(s),
-                                                                  extrapolate=False))
+            object.__setattr__(self, "_interp", Pchip(np.array(m), np.array(s), extrapolate=False))
 
     @classmethod
     def from_arrays(cls, mag, sigma) -> "ErrorLaw":
@@ -306,12 +299,11 @@ class Completeness:
             raise ValueError("Completeness needs both table_mag and table_p, or neither")
         if self.table_mag is not None:
             m, p = _interp_table(self.table_mag, self.table_p, "completeness table", positive=False, hi=1.0)
-            from scipy.interpolate import PchipInterpolator
+            from hbmodel.core.numerics import Pchip
 
             object.__setattr__(self, "table_mag", m)
             object.__setattr__(self, "table_p", p)
-            object.__setattr__(self, "_interp", PchipInterpolator(np.array(m), np.array(p),
-                                                                  extrapolate=False))
+            object.__setattr__(self, "_interp", Pchip(np.array(m), np.array(p), extrapolate=False))
 
     @classmethod
     def from_arrays(cls, mag, p) -> "Completeness":
@@ -362,7 +354,7 @@ def observe_magnitudes(true_mag: Mapping[str, np.ndarray], rng, *,
     errors : dict band -> ndarray (the sigma used)
     detected : bool ndarray (all True without ``completeness``)
     """
-    rng = _rng(rng)
+    rng = as_generator(rng)
     mags = _mag_dict(true_mag, "true_mag")
     if not isinstance(error_laws, Mapping):
         raise ValueError("error_laws must be a dict of band -> ErrorLaw")
@@ -489,7 +481,7 @@ def differential_reddening(n: int, ebv: float, rng, *, sd: float = 0.0, ebv_map=
     ``positions`` is an ``(n, 2)`` array of (x, y) in the map's units.
     """
     n = _count(n)
-    rng = _rng(rng)
+    rng = as_generator(rng)
     ebv = _scalar(ebv, "ebv (mean E(B-V))", lo=0.0)
     sd = _scalar(sd, "sd (E(B-V) scatter)", lo=0.0)
     loc = np.full(n, ebv)
@@ -542,7 +534,7 @@ def add_unresolved_binaries(mag: Mapping[str, np.ndarray], companion_mag: Mappin
     companion (no light). Returns a new dict (and the binary mask if
     ``return_mask``).
     """
-    rng = _rng(rng)
+    rng = as_generator(rng)
     fraction = _fraction(fraction, "binary fraction")
     m1 = _mag_dict(mag, "mag")
     m2 = _mag_dict(companion_mag, "companion_mag", allow_inf=True)
@@ -599,14 +591,7 @@ class CMDBox:
             raise ValueError(f"CMDBox mag_band {self.mag_band!r} must be one of the colour bands {b1}, {b2}")
         object.__setattr__(self, "colour", (b1, b2))
         for name in ("mag_range", "colour_range"):
-            rng_ = getattr(self, name)
-            try:
-                lo, hi = (float(v) for v in rng_)
-            except (TypeError, ValueError):
-                raise ValueError(f"CMDBox {name} must be a (lo, hi) pair") from None
-            if not (math.isfinite(lo) and math.isfinite(hi) and hi > lo):
-                raise ValueError(f"CMDBox {name} must be finite with hi > lo, got {rng_}")
-            object.__setattr__(self, name, (lo, hi))
+            object.__setattr__(self, name, check_interval(getattr(self, name), f"CMDBox {name}"))
         offs = {}
         for band, off in dict(self.offsets).items():
             if band in (b1, b2):
@@ -627,7 +612,7 @@ def uniform_contaminants(n: int, rng, box) -> dict[str, np.ndarray]:
     band independently and uniformly (a box in magnitude space).
     """
     n = _count(n)
-    rng = _rng(rng)
+    rng = as_generator(rng)
     if isinstance(box, CMDBox):
         mag = rng.uniform(box.mag_range[0], box.mag_range[1], n)
         col = rng.uniform(box.colour_range[0], box.colour_range[1], n)
@@ -639,12 +624,7 @@ def uniform_contaminants(n: int, rng, box) -> dict[str, np.ndarray]:
     if isinstance(box, Mapping) and box:
         out = {}
         for band, lim in box.items():
-            try:
-                lo, hi = (float(v) for v in lim)
-            except (TypeError, ValueError):
-                raise ValueError(f"box[{band!r}] must be a (lo, hi) pair") from None
-            if not (math.isfinite(lo) and math.isfinite(hi) and hi > lo):
-                raise ValueError(f"box[{band!r}] must be finite with hi > lo, got {lim}")
+            lo, hi = check_interval(lim, f"box[{band!r}]")
             out[str(band)] = rng.uniform(lo, hi, n)
         return out
     raise ValueError("box must be a CMDBox or a non-empty dict band -> (lo, hi)")
@@ -659,7 +639,7 @@ def resample_field(field_table, n: int, rng, bands: Sequence[str] | None = None)
     (select them away first, e.g. with :func:`hbmodel.io.catalogues.finite_rows`).
     """
     n = _count(n)
-    rng = _rng(rng)
+    rng = as_generator(rng)
     names = list(field_table.colnames) if hasattr(field_table, "colnames") else (
         list(field_table) if isinstance(field_table, Mapping) else None)
     if names is None:

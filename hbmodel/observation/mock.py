@@ -11,6 +11,8 @@ comes from one explicit ``numpy.random.Generator``.
 Star counts can be set by the number of HB stars or by the population's total
 initial mass, via the Kroupa (2001, MNRAS 322, 231) IMF: the rate at which stars
 reach the RGB tip is ``M_tot xi(m_tip) |dm_tip/dt|``.
+
+Size (410+ lines): one stage (mock catalogues in memory and chunked to disk), just over 400 lines.
 """
 from __future__ import annotations
 
@@ -22,7 +24,8 @@ from hbmodel.physics.imf import imf_number_density
 from hbmodel.populations.population import Population
 
 __all__ = ["ObservationSpec", "make_mock", "make_mock_arrays", "mock_table", "PHASE_NAMES", "star_sampler", "expected_hb_count", "imf_number_density",
-           "stars_per_hb_star", "mock_estimate", "ChunkPlan", "plan_chunked_mock", "write_chunked_mock"]
+           "stars_per_hb_star", "mock_estimate", "ChunkPlan", "plan_chunked_mock", "write_chunked_mock",
+           "write_mock_parquet", "streams_to_parquet", "EmptyMockError"]
 
 
 @dataclass(frozen=True)
@@ -48,6 +51,10 @@ class ObservationSpec:
     field_colour: tuple | None = None    # (A, B): colour A - B of field_box (default: bands[0] - bands[1])
 
     def __post_init__(self):
+        from hbmodel.core.quantities import in_unit
+        for key in ("distance_modulus", "ebv", "ebv_sd"):  # astropy Quantities in mag at the API edge
+            if hasattr(getattr(self, key), "unit"):
+                object.__setattr__(self, key, in_unit(getattr(self, key), "mag", key))
         if not np.isfinite(self.distance_modulus):
             raise ValueError("distance modulus must be finite")
         if self.ebv < 0:
@@ -83,13 +90,14 @@ def _companions(mass_msun, feh, rng, bands):
 
     Main-sequence L ~ M^4, R ~ M^0.8 (common practice, textbook homology scalings)."""
     from hbmodel.photometry.magnitudes import absolute_magnitudes
+    from hbmodel.physics.giant_branch import LOG_G_SUN, TEFF_SUN_K
     q = rng.uniform(0.1, 1.0, len(mass_msun))
     m = np.clip(q * np.minimum(mass_msun, 1.0), 0.1, None)
     logl = 4.0 * np.log10(m)
     logr = 0.8 * np.log10(m)
-    logt = np.log10(5772.0) + 0.25 * logl - 0.5 * logr
+    logt = np.log10(TEFF_SUN_K) + 0.25 * logl - 0.5 * logr
     logt = np.clip(logt, np.log10(3000.0), np.log10(50000.0))
-    logg = np.clip(4.438 + np.log10(m) - 2 * logr, -0.5, 6.5)
+    logg = np.clip(LOG_G_SUN + np.log10(m) - 2 * logr, -0.5, 6.5)
     return absolute_magnitudes(10 ** logt, logg, feh, logl, bands)
 
 
@@ -150,24 +158,8 @@ def make_mock_arrays(population: Population, *, bands, rng: np.random.Generator,
     from hbmodel.observation.effects import (CMDBox, Completeness, add_unresolved_binaries, default_error_law,
                           differential_reddening, observe_magnitudes, resample_field, uniform_contaminants)
     from hbmodel.photometry.magnitudes import get_band
-    from hbmodel.physics.pulsation import MODE_NONE
 
-    if not isinstance(rng, np.random.Generator):
-        raise ValueError("make_mock needs a numpy.random.Generator")
-    bands = tuple(get_band(b).name for b in bands)  # canonical names (aliases such as K -> Ks)
-    if not bands:
-        raise ValueError("give at least one band")
-    if (n_hb is None) == (total_mass_msun is None):
-        raise ValueError("give exactly one of n_hb and total_mass_msun")
-    if n_hb is None:
-        n_hb = expected_hb_count(population, total_mass_msun)
-        n_hb = int(rng.poisson(n_hb))
-        if n_hb <= 0:
-            raise ValueError(f"a population of {total_mass_msun:g} Msun holds no HB star")
-    if int(n_hb) <= 0:
-        raise ValueError("the number of HB stars must be positive")
-    if obs.window is not None and obs.window[0] not in bands:
-        raise ValueError(f"window band {obs.window[0]} is not among the mock's bands")
+    bands, n_hb, rng = _mock_inputs(population, bands, rng, n_hb, total_mass_msun, obs)
     rgb_range = _rgb_logl_range(obs)
     sampler = star_sampler(population, bands, obs.rv, obs.law)
     per_star = obs.ebv_sd > 0 or obs.binary_fraction > 0
@@ -190,10 +182,7 @@ def make_mock_arrays(population: Population, *, bands, rng: np.random.Generator,
     else:
         ebv_star = np.full(n, obs.ebv, COMPACT_DTYPE)
         true = {b: d[f"{b}_true"] for b in bands}
-    mode = d["rr_mode"]
-    cols = {"phase": d["phase"], "mass": d["mass"], "teff": d["teff"], "logg": d["logg"],
-            "logl": d["logl"], "is_rr": mode != MODE_NONE, "rr_mode": mode.astype(np.int16),
-            "period_days": d["period_days"], "ebv": ebv_star}
+    cols = _star_columns(d, ebv_star)
     # field contamination
     if obs.n_field > 0:
         if obs.field_table is not None:
@@ -225,6 +214,47 @@ def make_mock_arrays(population: Population, *, bands, rng: np.random.Generator,
     observed, errors, detected = observe_magnitudes(true, rng, error_laws=laws, completeness=completeness,
                                                     completeness_band=cband if completeness else None,
                                                     dtype=COMPACT_DTYPE)
+    return _catalogue(cols, true, observed, errors, detected, obs, bands), _mock_meta(n_hb, obs, bands)
+
+
+def _mock_inputs(population, bands, rng, n_hb, total_mass_msun, obs):
+    """Checked inputs of a mock: canonical band names, the number of HB stars to draw and the Generator."""
+    from hbmodel.core.randomness import as_generator
+    from hbmodel.photometry.magnitudes import get_band
+    rng = as_generator(rng)
+    bands = tuple(get_band(b).name for b in bands)  # canonical names (aliases such as K -> Ks)
+    if not bands:
+        raise ValueError("give at least one band")
+    if (n_hb is None) == (total_mass_msun is None):
+        raise ValueError("give exactly one of n_hb and total_mass_msun")
+    if n_hb is None:
+        n_hb = expected_hb_count(population, total_mass_msun)
+        n_hb = int(rng.poisson(n_hb))
+        if n_hb <= 0:
+            raise ValueError(f"a population of {total_mass_msun:g} Msun holds no HB star")
+    if int(n_hb) <= 0:
+        raise ValueError("the number of HB stars must be positive")
+    if obs.window is not None and obs.window[0] not in bands:
+        raise ValueError(f"window band {obs.window[0]} is not among the mock's bands")
+    return bands, int(n_hb), rng
+
+
+def _mock_meta(n_hb, obs, bands):
+    return {"n_hb_drawn": int(n_hb), "distance_modulus": obs.distance_modulus,
+            "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands), "n_field": int(obs.n_field)}
+
+
+def _star_columns(d, ebv_star, rows=slice(None)):
+    """The catalogue's star columns (before the photometry) of the sampler's output ``d``, rows ``rows``."""
+    from hbmodel.physics.pulsation import MODE_NONE
+    mode = d["rr_mode"][rows]
+    return {"phase": d["phase"][rows], "mass": d["mass"][rows], "teff": d["teff"][rows], "logg": d["logg"][rows],
+            "logl": d["logl"][rows], "is_rr": mode != MODE_NONE, "rr_mode": mode.astype(np.int16),
+            "period_days": d["period_days"][rows], "ebv": ebv_star}
+
+
+def _catalogue(cols, true, observed, errors, detected, obs, bands):
+    """The catalogue's columns: the detected stars inside the window, photometry as float32."""
     keep = np.asarray(detected, bool)
     if obs.window is not None:
         wband, bright, faint = obs.window
@@ -235,9 +265,91 @@ def make_mock_arrays(population: Population, *, bands, rng: np.random.Generator,
         data[b] = sel(observed[b])
         data[f"{b}_err"] = sel(errors[b])
         data[f"{b}_true"] = sel(true[b]).astype(COMPACT_DTYPE)
-    meta = {"n_hb_drawn": int(n_hb), "distance_modulus": obs.distance_modulus,
-            "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands), "n_field": int(obs.n_field)}
-    return data, meta
+    return data
+
+
+class EmptyMockError(ValueError):
+    """No star of a mock survives its completeness limit or magnitude window."""
+
+
+def streams_to_parquet(obs: ObservationSpec, bands) -> bool:
+    """True when :func:`write_mock_parquet` can write this mock: its observation takes no random number
+    between the stars and their photometric errors and needs no statistic of the whole catalogue (no
+    per-star reddening or binaries, no field stars, no completeness law, a depth for every band)."""
+    from hbmodel.photometry.magnitudes import get_band
+    return (obs.ebv_sd == 0 and obs.binary_fraction == 0 and obs.n_field == 0 and obs.completeness_m50 is None
+            and bool(obs.depth) and all(get_band(b).name in obs.depth for b in bands))
+
+
+def _band_generators(rng: np.random.Generator, n_bands: int, n: int):
+    """One generator per band whose normal deviates continue where the one-pass draw of
+    :func:`hbmodel.observation.effects.observe_magnitudes` (``n`` deviates of the first band, then ``n``
+    of the next, ...) starts that band.  The last band's is ``rng`` itself, moved past the others'
+    deviates, so that ``rng`` ends where the one-pass draw leaves it."""
+    gens = []
+    for _k in range(n_bands - 1):
+        g = np.random.Generator(type(rng.bit_generator)())
+        g.bit_generator.state = rng.bit_generator.state
+        gens.append(g)
+        buf = np.empty(min(n, 1 << 16))
+        for c0 in range(0, n, buf.size):  # skip this band's deviates (the stream is read in order)
+            rng.standard_normal(out=buf[:min(buf.size, n - c0)])
+    return gens + [rng]
+
+
+def write_mock_parquet(population: Population, *, bands, rng: np.random.Generator, path, n_hb=None,
+                       total_mass_msun=None, obs: ObservationSpec = ObservationSpec(), force=False):
+    """:func:`make_mock_arrays` written straight to a Parquet file (as :func:`hbmodel.io.catalogues.write_parquet_columns`
+    would write it: the same rows, columns and metadata) without holding the catalogue: rows are observed
+    and written, a row group at a time in a background thread, while the sampler computes the next.
+
+    For the mocks of :func:`streams_to_parquet` only (ValueError otherwise).  Returns ``(counts, meta)``:
+    the number of stars written per phase code (:data:`PHASE_NAMES`) and the metadata stored with them.
+    Raises :class:`EmptyMockError` (and writes nothing) if no star survives the window."""
+    from hbmodel.io.catalogues import PARQUET_ROW_GROUP, write_parquet_groups
+    from hbmodel.observation.effects import default_error_law, observe_magnitudes
+
+    bands, n_hb, rng = _mock_inputs(population, bands, rng, n_hb, total_mass_msun, obs)
+    if not streams_to_parquet(obs, bands):
+        raise ValueError("write_mock_parquet: this mock needs the whole catalogue at once (use make_mock_arrays)")
+    laws = {b: default_error_law(b, depth_mag=float(obs.depth[b])) for b in bands}
+    sampler = star_sampler(population, bands, obs.rv, obs.law)
+    meta = _mock_meta(n_hb, obs, bands)
+    counts = np.zeros(len(PHASE_NAMES), np.int64)
+
+    def produce(emit):
+        state = {"next": 0, "gens": None}
+
+        def rows(d, r0, r1):
+            if state["gens"] is None:  # every random number of the stars has been drawn by now
+                state["gens"] = _band_generators(rng, len(bands), len(d["phase"]))
+            part = slice(r0, r1)
+            true = {b: d[f"{b}_true"][part] for b in bands}
+            observed, errors = {}, {}
+            for b, g in zip(bands, state["gens"]):
+                o, e, _ = observe_magnitudes({b: true[b]}, g, error_laws={b: laws[b]}, dtype=COMPACT_DTYPE)
+                observed[b], errors[b] = o[b], e[b]
+            cols = _star_columns(d, np.full(r1 - r0, obs.ebv, COMPACT_DTYPE), part)
+            data = _catalogue(cols, true, observed, errors, np.ones(r1 - r0, bool), obs, bands)
+            counts[:] += np.bincount(data["phase"], minlength=len(PHASE_NAMES))
+            if len(data["phase"]):
+                emit(data)
+
+        def on_rows(d, stop):
+            n = len(d["phase"])
+            while state["next"] < n and (stop - state["next"] >= PARQUET_ROW_GROUP or stop == n):
+                r0 = state["next"]
+                state["next"] = min(r0 + PARQUET_ROW_GROUP, n)
+                rows(d, r0, state["next"])
+
+        sampler.draw(n_hb, rng, rgb_logl_range=_rgb_logl_range(obs), distance_modulus=obs.distance_modulus,
+                     ebv=obs.ebv, star_dtype=COMPACT_DTYPE, on_rows=on_rows)
+        if counts.sum() == 0:
+            raise EmptyMockError("no star survives the window: the mock would be empty (nothing written)")
+
+    write_parquet_groups(produce, path, force=force, categories={"phase": PHASE_NAMES[:3]},
+                         meta={"hbmodel_mock": {k: v for k, v in meta.items() if k != "n_field"}})
+    return counts, meta
 
 
 def _rgb_logl_range(obs: ObservationSpec):
@@ -245,9 +357,10 @@ def _rgb_logl_range(obs: ObservationSpec):
     generous bolometric-correction margin."""
     if obs.window is None:
         return None
+    from hbmodel.photometry.magnitudes import M_BOL_SUN
     _wband, bright, faint = obs.window
     abs_b, abs_f = bright - obs.distance_modulus - 0.5, faint - obs.distance_modulus + 3.0
-    return (4.74 - abs_f) / 2.5, (4.74 - abs_b) / 2.5 + 0.6
+    return (M_BOL_SUN - abs_f) / 2.5, (M_BOL_SUN - abs_b) / 2.5 + 0.6
 
 
 def stars_per_hb_star(population: Population, obs: ObservationSpec = ObservationSpec()) -> float:

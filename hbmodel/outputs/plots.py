@@ -289,8 +289,16 @@ def _round_title(key, v):
 
 @styled
 def plot_corner(est, keys=None, *, truth: dict | None = None, width=None):
-    """Corner plot of the posterior: 1-D histograms with the median (solid) and the 16/84 % quantiles
-    (dashed) and the value as a title; 2-D draws below; ``truth`` values (when known) as markers."""
+    """Corner plot of the posterior, drawn by the ``corner`` package (Foreman-Mackey 2016, JOSS 1, 24):
+    1-D histograms with the median (solid) and the 16/84 % quantiles (dashed) and the value as a title;
+    2-D histograms (smoothed by 0.8 bin) with 1σ/2σ contours below; ``truth`` values (when known) as lines and markers."""
+    import corner
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.lines import Line2D
+
+    from hbmodel.io.figures import COLUMN_WIDTH_IN, PAGE_WIDTH_IN
+
     est._fitted()
     post = est.posterior_
     keys = keys or [k for k in ("mass_loss", "mass_loss_sd", "helium_fraction", "delta_y", "age",
@@ -300,46 +308,28 @@ def plot_corner(est, keys=None, *, truth: dict | None = None, width=None):
     if d == 0:
         raise ValueError("no sampled parameter varies in the posterior: nothing to plot")
     width = width or ("column" if d <= 2 else "page")
-    fig, axes = new_figure(width, 1.0, nrows=d, ncols=d, squeeze=False)
-    for i, ki in enumerate(keys):
-        xi = np.asarray(post[ki], float)
-        for j in range(d):
-            ax = axes[i, j]
-            if j > i:
-                ax.set_axis_off()
-                continue
-            xj = np.asarray(post[keys[j]], float)
-            if i == j:
-                ax.hist(xi, bins=40, color=OKABE_ITO["black"], histtype="step")
-                q16, q50, q84 = np.percentile(xi, [16, 50, 84])
-                ax.axvline(q50, color=OKABE_ITO["blue"], lw=1.0)
-                for q in (q16, q84):
-                    ax.axvline(q, color=OKABE_ITO["blue"], lw=0.8, ls="--")
-                if ki in truth:
-                    ax.axvline(truth[ki], color=OKABE_ITO["vermillion"], lw=1.0)
-                ax.set_yticks([])
-                ax.set_title(_round_title(ki, xi), fontsize=7)
-            else:
-                ax.scatter(xj, xi, s=1, lw=0, color=OKABE_ITO["black"], alpha=0.25, rasterized=True)
-                if keys[j] in truth and ki in truth:
-                    ax.plot(truth[keys[j]], truth[ki], marker="*", ms=7, color=OKABE_ITO["vermillion"],
-                            mec="white", mew=0.4)
-                if keys[j] in truth:
-                    ax.axvline(truth[keys[j]], color=OKABE_ITO["vermillion"], lw=0.6)
-                if ki in truth:
-                    ax.axhline(truth[ki], color=OKABE_ITO["vermillion"], lw=0.6)
-            if i == d - 1:
-                ax.set_xlabel(axis_label(keys[j]))
-            else:
-                ax.tick_params(labelbottom=False)
-            if j == 0 and i > 0:
-                ax.set_ylabel(axis_label(ki))
-            elif j > 0:
-                ax.tick_params(labelleft=False)
-            ax.tick_params(labelsize=6)
-            ax.minorticks_off()  # 25 panels: minor ticks only clutter (and slow the drawing)
-            ax.locator_params(nbins=4)
-    from matplotlib.lines import Line2D
+    w = float({"column": COLUMN_WIDTH_IN, "page": PAGE_WIDTH_IN}.get(width, width))
+    fig = Figure(figsize=(w, w))  # corner places the panels itself (no layout engine while it draws)
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(d, d, squeeze=False)
+    data = np.column_stack([np.asarray(post[k], float) for k in keys])
+    corner.corner(data, fig=fig, bins=30, smooth=0.8, labels=[axis_label(k) for k in keys], color=OKABE_ITO["black"],
+                  quantiles=[0.16, 0.84], levels=(1 - np.exp(-0.5), 1 - np.exp(-2.0)), plot_datapoints=True,
+                  data_kwargs={"alpha": 0.15, "ms": 1.0},
+                  truths=[truth.get(k) for k in keys] if truth else None, truth_color=OKABE_ITO["vermillion"],
+                  label_kwargs={"fontsize": 7}, max_n_ticks=4)
+    for i, k in enumerate(keys):
+        ax = axes[i, i]
+        x = data[:, i]
+        for ln in ax.lines:  # corner's quantile lines in the figure's colours
+            if ln.get_linestyle() == "--":
+                ln.set_color(OKABE_ITO["blue"])
+                ln.set_linewidth(0.8)
+        ax.axvline(np.median(x), color=OKABE_ITO["blue"], lw=1.0)
+        ax.set_title(_round_title(k, x), fontsize=7, loc="right" if i == d - 1 else "center")  # inside the page
+    for ax in axes.ravel():
+        ax.tick_params(labelsize=6)
+        ax.minorticks_off()  # 25 panels: minor ticks only clutter (and slow the drawing)
     handles = ([Line2D([], [], color=OKABE_ITO["vermillion"], label="truth")] if truth else []) + [
         Line2D([], [], color=OKABE_ITO["blue"], label="median"),
         Line2D([], [], color=OKABE_ITO["blue"], ls="--", label="16 / 84 %")]
@@ -347,6 +337,7 @@ def plot_corner(est, keys=None, *, truth: dict | None = None, width=None):
         fig.legend(handles=handles, loc="upper right", bbox_to_anchor=(0.98, 0.98))
     else:
         axes[0, 0].legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0)
+    fig.set_layout_engine("constrained")  # then the journal layout, as every other figure
     return fig, axes
 
 

@@ -1,6 +1,10 @@
 """Self-contained Markdown reports (with the figures beside them) for fit and distance runs, the
 number formatting they share (values rounded to their uncertainty), and the run record
-(configuration + hbmodel version) every result folder carries."""
+(configuration + hbmodel version) every result folder carries.
+
+Size (460+ lines): the fit and distance reports share the number formatting and the Markdown/HTML helpers of the
+first sections.
+"""
 from __future__ import annotations
 
 import math

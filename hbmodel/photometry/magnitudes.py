@@ -60,6 +60,9 @@ Construction (each step names its published source; see the table headers):
 Limitations: U-B (Balmer jump) and G-V are *not* monotonic in Teff -- by physics,
 so only colours whose bands straddle the V/G peak are; hot-star colours have no
 gravity or metallicity term (except through U); Flower's BC_V has no [Fe/H] term.
+
+Size (800+ lines): the band registry, the band relations and the colour engine read the same tables and resolve
+bands through one lookup; each marked section is short.
 """
 from __future__ import annotations
 
@@ -520,7 +523,7 @@ def _engine():
     lo, hi = np.log10(TEFF_RANGE_K[0]), np.log10(TEFF_RANGE_K[1])
     logt = np.linspace(lo, hi, _NFINE)
     teff = 10.0 ** logt
-    from scipy.interpolate import PchipInterpolator  # lazy: scipy.interpolate costs ~0.5 s at start-up
+    from hbmodel.core.numerics import Pchip  # numpy PCHIP: scipy.interpolate costs ~0.5 s at start-up
 
     cols = {}
     bands = None
@@ -529,7 +532,7 @@ def _engine():
         bands = tuple(c[2:] for c in t if c.startswith("v_"))
         x = np.log10(t["teff_k"])
         for b in bands:
-            cols[f"{trk}{b}"] = PchipInterpolator(x, t["v_" + b])(logt)
+            cols[f"{trk}{b}"] = Pchip(x, t["v_" + b])(logt)
     s = 1.0 - _smoothstep((teff - 4000.0) / 1000.0)
     cols["s"] = s
     cols["bcp"] = _flower_bc_v(logt) + s * cols["1Ks"]

@@ -43,6 +43,8 @@ M_SUN_G = 1.98847e33
 YEAR_S = 3.15576e7
 #: log10 of the nominal solar surface gravity in cgs (GM_sun / R_sun^2 = 27400 cm s^-2, IAU 2015 B3).
 LOG_G_SUN = 4.438
+#: IAU 2015 Resolution B3 nominal solar effective temperature (K; Prsa et al. 2016, AJ 152, 41).
+TEFF_SUN_K = 5772.0
 
 
 @table_cache
@@ -216,7 +218,7 @@ def clip_blue_of_rgb(logl, logteff, mh, rgb_mass_msun, helium_excess=0.0):
 
 def radius_rsun(logl, logteff):
     """Stefan-Boltzmann radius in Rsun with the IAU 2015 nominal Teff_sun = 5772 K."""
-    return 10.0 ** (0.5 * np.asarray(logl, float) - 2.0 * (np.asarray(logteff, float) - np.log10(5772.0)))
+    return 10.0 ** (0.5 * np.asarray(logl, float) - 2.0 * (np.asarray(logteff, float) - np.log10(TEFF_SUN_K)))
 
 
 def log_g(mass_msun, logl, logteff):
@@ -228,7 +230,7 @@ def log_g_from_logs(log_mass, logl, logteff, out=None):
     """``log g = log g_sun + log M - log L + 4 (log Teff - log Teff_sun)`` (g = GM/R^2 with the
     Stefan-Boltzmann radius; IAU 2015 nominal solar values), from logarithms only: no power or log per star.
     ``out`` receives the result (in place) if given."""
-    out = np.subtract(logteff, np.log10(5772.0), out=out)
+    out = np.subtract(logteff, np.log10(TEFF_SUN_K), out=out)
     out *= 4.0
     out += log_mass
     out -= logl

@@ -24,7 +24,7 @@ from hbmodel.core.tables import read_table, table_cache
 from hbmodel.core.validation import check_range
 from hbmodel.physics.giant_branch import agb_logteff
 
-__all__ = ["hb_lifetime_myr", "class_weights", "hb_track", "hb_track_dlogteff_dtau", "agb_track", "agb_lifetime_myr", "reaches_agb"]
+__all__ = ["hb_lifetime_myr", "class_weights", "hb_track", "hb_track_bounds", "hb_track_dlogteff_dtau", "agb_track", "agb_lifetime_myr", "reaches_agb"]
 
 
 @table_cache
@@ -100,8 +100,8 @@ def _softplus(x):
     return np.logaddexp(0.0, x)
 
 
-def _blue_shape(c, tau):
-    """Fraction of the total blue-HB drift reached at ``tau`` and its derivative.
+def _blue_shape(c, tau, derivative=True):
+    """Fraction of the total blue-HB drift reached at ``tau`` and its derivative (None unless ``derivative``).
 
     ``g = (1-q) tau + q S(tau)``: a slow drift over most of the HB, then a fast, steady redward run after
     ``blue_tc`` (smoothed over ``blue_w``) towards the AGB, ``S = softplus((tau-tc)/w) / softplus((1-tc)/w)``
@@ -111,7 +111,7 @@ def _blue_shape(c, tau):
     norm = _softplus((1.0 - tc) / w)
     x = (tau - tc) / w
     g = (1.0 - q) * tau + q * _softplus(x) / norm
-    dg = (1.0 - q) + q * _sigmoid(x) / (w * norm)
+    dg = (1.0 - q) + q * _sigmoid(x) / (w * norm) if derivative else None
     return g, dg
 
 
@@ -142,7 +142,11 @@ def hb_track(zahb_logl, zahb_logteff, tau):
     tau = check_range(tau, "fractional HB age tau", 0.0, 1.0)
     l0 = check_range(zahb_logl, "ZAHB log L", 0.5, 2.6)
     t0 = check_range(zahb_logteff, "ZAHB log Teff", 3.55, 4.70)
-    l0, t0, tau = np.broadcast_arrays(l0, t0, tau)
+    shape = np.broadcast_shapes(np.shape(l0), np.shape(t0), np.shape(tau))
+    tau = np.broadcast_to(tau, shape)
+    # the factors of each star (functions of its ZAHB log Teff) are computed once per star, at the shape
+    # of t0, and broadcast in the products below: a track evaluated at many tau costs that many times the
+    # tau-dependent terms only (pulsation.pulsation_mode follows each strip star back over 16 steps)
     w_ehb, w_blue, w_red = class_weights(t0)
     # dlog L = sum over families of w (a tau + b tau^n)
     dl = (w_red * c["red_a"] + w_blue * c["blue_a"] + w_ehb * c["ehb_a"]) * tau
@@ -155,10 +159,32 @@ def hb_track(zahb_logl, zahb_logteff, tau):
     dt *= _red_loop_amplitude(c, t0)
     dt -= c["red_late"] * _power(tau, 8)
     dt *= w_red
-    dt -= (w_blue * _blue_drift(c, t0)) * _blue_shape(c, tau)[0]
+    dt -= (w_blue * _blue_drift(c, t0)) * _blue_shape(c, tau, derivative=False)[0]
     dt += (c["ehb_heat"] * w_ehb) * (tau * tau)
     dt += t0
     return dl, dt
+
+
+def hb_track_bounds(zahb_logl, zahb_logteff, tau):
+    """Bounds of :func:`hb_track` over the fractional ages ``[0, tau]``: ``(logl_tau, logteff_max)``, the
+    log L at ``tau`` (log L rises along every track, so it lies in ``[zahb_logl, logl_tau]`` before) and an
+    upper bound of log Teff, each term of the track at its largest (the red loop at its crest, the blue-HB
+    drift at none, the extreme-HB heating at ``tau``).  None when the table's coefficients would let log L
+    fall or a term change sign (then no bound is claimed).  Used to skip stars that cannot have been hotter
+    than a strip edge earlier (:func:`hbmodel.physics.pulsation.pulsation_mode`)."""
+    c = _c()
+    rising = all(c[k] >= 0 for k in ("red_a", "red_b", "blue_a", "blue_b", "ehb_a", "ehb_b"))
+    if not (rising and c["red_loop_p"] > 0 and 0.0 <= c["blue_q"] <= 1.0):
+        return None
+    logl_tau, _ = hb_track(zahb_logl, zahb_logteff, tau)
+    t0 = np.asarray(zahb_logteff, float)
+    tau = np.asarray(tau, float)
+    w_ehb, w_blue, w_red = class_weights(t0)
+    # red loop A sin(pi tau^p) <= max(A, 0) (0 <= sin <= 1); -red_late tau^8 <= max(-red_late, 0);
+    # blue drift -D g with 0 <= g <= 1; extreme-HB heating h tau'^2 <= max(h, 0) tau^2
+    t_max = (t0 + w_red * (np.maximum(_red_loop_amplitude(c, t0), 0.0) + max(-c["red_late"], 0.0))
+             + np.maximum(-w_blue * _blue_drift(c, t0), 0.0) + max(c["ehb_heat"], 0.0) * w_ehb * (tau * tau))
+    return logl_tau, t_max
 
 
 def hb_track_dlogteff_dtau(zahb_logteff, tau):

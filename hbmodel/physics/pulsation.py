@@ -111,15 +111,29 @@ def _entered_from_blue(zahb_logl, zahb_logteff, tau, logm, n_steps):
     """True where the HB track was hotter than the fundamental blue edge at some tau' < tau.
 
     Stars with unknown track (NaN ZAHB or tau) are treated as arriving from the red (False)."""
-    from hbmodel.physics.hb_evolution import hb_track
+    from hbmodel.physics.hb_evolution import hb_track, hb_track_bounds
     ok = np.isfinite(zahb_logl) & np.isfinite(zahb_logteff) & np.isfinite(tau)
     out = np.zeros(tau.shape, bool)
     if not ok.any():
         return out
-    frac = np.arange(n_steps) / n_steps
-    tt = tau[ok, None] * frac[None, :]
-    l, t = hb_track(np.clip(zahb_logl[ok], 0.5, 2.6)[:, None], np.clip(zahb_logteff[ok], 3.55, 4.70)[:, None], tt)
-    out[ok] = np.any(t > _edge("fbe", l, logm=logm[ok, None]), axis=1)
+    l0, t0 = np.clip(zahb_logl[ok], 0.5, 2.6), np.clip(zahb_logteff[ok], 3.55, 4.70)
+    tau, logm = tau[ok], logm[ok]
+    # Stars whose track, at its hottest, stays cooler than the FBE at its lowest over the luminosities it
+    # has had (the edge is linear in log L, so its lowest is at an end) were never hotter than the FBE:
+    # False without the history.  The margin (1e-9 dex) is far above rounding and far below any physics.
+    need = np.ones(tau.shape, bool)
+    bounds = hb_track_bounds(l0, t0, tau)
+    if bounds is not None:
+        l_tau, t_max = bounds
+        need = t_max >= np.minimum(_edge("fbe", l0, logm=logm), _edge("fbe", l_tau, logm=logm)) - 1e-9
+    idx = np.flatnonzero(need)
+    if idx.size:
+        frac = np.arange(n_steps) / n_steps
+        tt = tau[idx, None] * frac[None, :]
+        l, t = hb_track(l0[idx, None], t0[idx, None], tt)
+        hot = np.zeros(tau.shape, bool)
+        hot[idx] = np.any(t > _edge("fbe", l, logm=logm[idx, None]), axis=1)
+        out[ok] = hot
     return out
 
 

@@ -25,6 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from hbmodel.core.randomness import as_generator
 from hbmodel.physics import hb_evolution as hbe
 from hbmodel.photometry.extinction import extinction_ratio
 from hbmodel.physics.giant_branch import clip_blue_of_rgb, log_g_from_logs
@@ -156,7 +157,7 @@ class StarSampler:
 
     # ------------------------------------------------------------------ draws
     def draw(self, n_hb, rng: np.random.Generator, *, rgb_logl_range=None, distance_modulus=0.0, ebv=None,
-             star_dtype=np.float64, n_threads=None):
+             star_dtype=np.float64, n_threads=None, on_rows=None):
         """Random stars: ``n_hb`` HB stars (expected) plus their RGB and early-AGB stars.
 
         Returns a dict of equal-length arrays: ``phase`` (int codes, :data:`PHASE_CODES`), ``sub``
@@ -168,10 +169,12 @@ class StarSampler:
         ``logl`` and ``period_days`` (computed in float64 and rounded once on storing, e.g. float32 for
         a compact catalogue); magnitudes and ratios are float64.  ``n_threads`` (default: up to 2) share
         the per-star physics; the random numbers are drawn first, in one thread, so the stars do not
-        depend on it.
+        depend on it.  ``on_rows(out, stop)``, if given, is called in the calling thread each time the
+        physics of rows ``[0, stop)`` of ``out`` (the dict returned) is complete, ``stop`` rising to the
+        number of rows, after every random number of the draw has been taken from ``rng``: a caller can
+        process finished rows while the rest are computed.
         """
-        if not isinstance(rng, np.random.Generator):
-            raise ValueError("draw() needs a numpy.random.Generator")
+        rng = as_generator(rng)
         n_hb = int(n_hb)
         if n_hb <= 0:
             raise ValueError("the number of HB stars must be positive")
@@ -208,19 +211,34 @@ class StarSampler:
                 view = {key: arr[a + c0:a + c1] for key, arr in out.items()}
                 rand = tuple(x[c0:c1] for x in r)
                 if ph == "rgb":
-                    work.append((self._fill_rgb, (i, win, *rand, view, distance_modulus, ebv)))
+                    work.append((self._fill_rgb, (i, win, *rand, view, distance_modulus, ebv), a + c1))
                 else:
-                    work.append((self._fill_hb, (i, ph, *rand, view, distance_modulus, ebv)))
+                    work.append((self._fill_hb, (i, ph, *rand, view, distance_modulus, ebv), a + c1))
             a += k
+        def done(stop):
+            if on_rows is not None:
+                on_rows(out, stop)
+
         threads = _threads(n_threads, len(work))
         if threads > 1:  # numpy releases the GIL in the element-wise work; stretches are disjoint
             from concurrent.futures import ThreadPoolExecutor
             with ThreadPoolExecutor(threads) as pool:
-                for f in [pool.submit(fn, *args) for fn, args in work]:
-                    f.result()
+                futures = [(pool.submit(fn, *args), stop) for fn, args, stop in work]
+                del work
+                try:
+                    for f, stop in futures:  # in row order: the finished rows form a growing prefix
+                        f.result()
+                        done(stop)
+                except BaseException:
+                    for f, _stop in futures:
+                        f.cancel()
+                    raise
         else:
-            for fn, args in work:
+            for fn, args, stop in work:
                 fn(*args)
+                done(stop)
+        if n == 0:
+            done(0)
         return out
 
     def _composed_rgb(self, i, dm, ebv):
