@@ -7,12 +7,17 @@ spent, so the lifetime ratio is the prior) are binned on a grid of
 (Gaussian convolution, scipy.ndimage), and evaluated at each star.  Where the
 two classes overlap the probabilities come out intermediate, as they must.
 Early-AGB stars are counted with the shell-burning (non-CHeB) class.
+
+:class:`CHeBClassifier` is a scikit-learn estimator (``BaseEstimator``): ``fit`` returns it, the learned
+densities end in ``_``, ``predict_proba`` before ``fit`` raises ``NotFittedError``.
 """
 from __future__ import annotations
 
 import numpy as np
 from scipy.interpolate import RegularGridInterpolator
 from scipy.ndimage import gaussian_filter
+from sklearn.base import BaseEstimator
+from sklearn.utils.validation import check_is_fitted
 
 from hbmodel.core.validation import as_float_array
 from hbmodel.populations.population import Population
@@ -20,7 +25,7 @@ from hbmodel.populations.population import Population
 __all__ = ["CHeBClassifier"]
 
 
-class CHeBClassifier:
+class CHeBClassifier(BaseEstimator):
     """Classifier of giants into core-helium-burning vs shell-burning (RGB/AGB) stars.
 
     Parameters
@@ -36,16 +41,23 @@ class CHeBClassifier:
 
     def __init__(self, population: Population, *, teff_err_k=80.0, logg_err=0.1, mass_err_msun=0.1,
                  use_mass=False, n_grid=(100, 130, 50)):
-        for v, name in ((teff_err_k, "teff error"), (logg_err, "logg error"), (mass_err_msun, "mass error")):
-            if not (np.isfinite(v) and v > 0):
-                raise ValueError(f"{name} must be positive")
+        # scikit-learn convention: the constructor only stores its arguments; fit() validates them
         self.population = population
-        self.teff_err_k, self.logg_err, self.mass_err_msun = float(teff_err_k), float(logg_err), float(mass_err_msun)
-        self.use_mass = bool(use_mass)
+        self.teff_err_k = teff_err_k
+        self.logg_err = logg_err
+        self.mass_err_msun = mass_err_msun
+        self.use_mass = use_mass
         self.n_grid = n_grid
 
     def fit(self, X=None, y=None):
-        """Build the smoothed class densities from the population model (data are not needed)."""
+        """Build the smoothed class densities from the population model (data are not needed; ``X`` and
+        ``y`` are accepted for the scikit-learn signature and ignored).  Returns the classifier."""
+        for v, name in ((self.teff_err_k, "teff error"), (self.logg_err, "logg error"),
+                        (self.mass_err_msun, "mass error")):
+            if not (np.isfinite(v) and v > 0):
+                raise ValueError(f"{name} must be positive")
+        if not isinstance(self.population, Population):
+            raise ValueError("CHeBClassifier needs population=Population(feh, age_gyr, ...)")
         st = self.population.model_stars(n_mass=160, n_tau=120, n_agb=60, n_rgb=3000)
         teff, logg, mass, w = st.teff_k, st.logg, st.mass_msun, st.weight
         cheb = st.phase == "hb"
@@ -54,11 +66,11 @@ class CHeBClassifier:
         nt, ng, nm = self.n_grid
         edges = [np.linspace(lo_t, hi_t, nt + 1), np.linspace(lo_g, hi_g, ng + 1)]
         data = [teff, logg]
-        sig = [self.teff_err_k / (edges[0][1] - edges[0][0]), self.logg_err / (edges[1][1] - edges[1][0])]
+        sig = [float(self.teff_err_k) / (edges[0][1] - edges[0][0]), float(self.logg_err) / (edges[1][1] - edges[1][0])]
         if self.use_mass:
             edges.append(np.linspace(0.4, 3.5, nm + 1))
             data.append(mass)
-            sig.append(self.mass_err_msun / (edges[2][1] - edges[2][0]))
+            sig.append(float(self.mass_err_msun) / (edges[2][1] - edges[2][0]))
         sample = np.column_stack(data)
         dens = {}
         for name, sel in (("cheb", cheb), ("shell", ~cheb)):
@@ -72,8 +84,7 @@ class CHeBClassifier:
 
     def predict_proba(self, teff_k, logg, mass_msun=None):
         """P(core-helium burning | Teff, log g[, mass]); NaN where both model densities vanish."""
-        if not hasattr(self, "interp_"):
-            self.fit()
+        check_is_fitted(self, "interp_", msg="this %(name)s is not fitted yet: call fit() first")
         teff = as_float_array(teff_k, "teff")
         logg = as_float_array(logg, "logg")
         pts = [teff, logg]

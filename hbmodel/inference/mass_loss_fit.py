@@ -1,6 +1,7 @@
 """Infer the RGB mass loss (mean and star-to-star spread) of a population from its HB / red clump.
 
-:class:`MassLossFit` is a scikit-learn-style estimator: configure it with a :class:`~hbmodel.populations.population.Population`
+:class:`MassLossFit` is a scikit-learn estimator (``sklearn.base.BaseEstimator``: ``get_params`` /
+``set_params``, ``clone``, its repr; ``NotFittedError`` from the result methods before ``fit``): configure it with a :class:`~hbmodel.populations.population.Population`
 (composition and age; its own mass-loss prescription is ignored), :class:`Priors` and a model
 (``"spread"``: Gaussian spread of the integrated loss; ``"helium"``: a helium-enriched fraction instead of a
 spread; ``"both"``), then ``fit(catalog)``, which returns the estimator.  Learned attributes end in ``_``.
@@ -42,6 +43,7 @@ from __future__ import annotations
 import time
 
 import numpy as np
+from sklearn.base import BaseEstimator
 
 from hbmodel.core.randomness import as_generator
 from hbmodel.physics import giant_branch as gb
@@ -60,7 +62,7 @@ __all__ = ["Priors", "MassLossFit", "MODELS", "REPORTED", "EBV_SPREAD_MAX", "LAP
 
 
 class MassLossFit(_DataMixin, _PosteriorMixin, _OptimiseMixin, _LaplaceMixin, _EnsembleMixin, _DerivedMixin,
-                  _ResultsMixin):
+                  _ResultsMixin, BaseEstimator):
     """Estimator of the mean integrated RGB mass loss and its dispersion (see the module docstring).
 
     Parameters
@@ -116,20 +118,6 @@ class MassLossFit(_DataMixin, _PosteriorMixin, _OptimiseMixin, _LaplaceMixin, _E
         self.law = law
         self.error_model = error_model
         self.progress = progress
-
-    # sklearn-style parameter access
-    def get_params(self, deep=True):
-        return {k: getattr(self, k) for k in ("population", "priors", "model", "bands", "region", "completeness",
-                                              "zero_points", "sampler", "compare_models", "n_walkers",
-                                              "max_steps", "chunk", "min_steps", "seed", "rv", "law", "error_model",
-                                              "colour", "progress")}
-
-    def set_params(self, **kw):
-        for k, v in kw.items():
-            if k not in self.get_params():
-                raise ValueError(f"unknown parameter {k!r}")
-            setattr(self, k, v)
-        return self
 
     # ------------------------------------------------------------------ set-up
     def _check(self):

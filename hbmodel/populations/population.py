@@ -278,6 +278,37 @@ class Population:
             raise AttributeError("Population is immutable")
         object.__delattr__(self, name)
 
+    # value semantics: two populations with the same defining values are equal (and hash alike); copying
+    # an immutable value returns it (so scikit-learn's clone() of an estimator shares it, as it may)
+    def _value(self) -> tuple:
+        return tuple(getattr(self, k) for k in self._DEFINING_FIELDS)
+
+    def __eq__(self, other):
+        if not isinstance(other, Population):
+            return NotImplemented
+        return type(self) is type(other) and self._value() == other._value()
+
+    def __hash__(self):
+        return hash((type(self).__name__,) + self._value())
+
+    def __copy__(self):
+        return self
+
+    def __deepcopy__(self, memo):
+        return self
+
+    def __repr__(self):
+        comps = self.components
+        if len(comps) == 1:
+            c = comps[0]
+            head = f"feh={c.feh:g}, age_gyr={c.age_gyr:g}, alpha_fe={c.alpha_fe:g}"
+        else:
+            head = f"components=<{len(comps)} components>"
+        extra = "".join(f", {k}={getattr(self, k)!r}" for k, d in
+                        (("helium", None), ("helium_enriched_fraction", 0.0), ("helium_delta_y", 0.0),
+                         ("logl_rgb_min", 0.8)) if getattr(self, k) != d)
+        return f"Population({head}, mass_loss={self.mass_loss!r}{extra})"
+
     def replace(self, **changes) -> "Population":
         """A copy with some defining values changed, e.g. ``pop.replace(mass_loss=MassLoss.from_eta(0.6))``.
 

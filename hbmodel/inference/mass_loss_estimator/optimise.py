@@ -68,7 +68,7 @@ class _OptimiseMixin:
     def _zero_point_sensitivity(self, names, x_map):
         """Mass loss with the zero points fixed at 0 (shift prior without them) vs free, at the MAP,
         plus the posterior correlations of the mass loss with the nuisance parameters."""
-        A, _mu4, cov4 = self._nuis["A"], self._nuis["mu4"], self._nuis["cov4"].copy()
+        A, cov4 = self._nuis["A"], self._nuis["cov4"].copy()
         saved = (self._shift_icov, self._shift_mu)
         cov_fixed = cov4.copy()
         cov_fixed[2, 2] = cov_fixed[3, 3] = 0.0

@@ -127,8 +127,9 @@ class _ResultsMixin:
 
 
     def _fitted(self):
-        if not hasattr(self, "posterior_"):
-            raise ValueError("call fit() first")
+        """Raise ``sklearn.exceptions.NotFittedError`` (a ValueError) unless :meth:`fit` has run."""
+        from sklearn.utils.validation import check_is_fitted
+        check_is_fitted(self, "posterior_", msg="this %(name)s is not fitted yet: call fit() first")
 
 
     def posterior_table(self):
