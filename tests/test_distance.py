@@ -82,7 +82,7 @@ def test_classification_accuracy_and_honest_overlap():
     t = make_mock(pop, bands=("Ks",), rng=np.random.default_rng(3), n_hb=2500,
                   obs=ObservationSpec(window=("Ks", -3.0, 0.0)))
     rng = np.random.default_rng(1)
-    teff = np.asarray(t["teff"]) + rng.normal(0, 80, len(t))
+    teff = np.asarray(t["teff_k"]) + rng.normal(0, 80, len(t))
     logg = np.asarray(t["logg"]) + rng.normal(0, 0.1, len(t))
     truth = np.asarray(t["phase"]) == "hb"
     p = CHeBClassifier(pop, teff_err_k=80, logg_err=0.1).fit().predict_proba(teff, logg)

@@ -576,7 +576,7 @@ def test_issue_differential_reddening_case(bands):
     cat = make_mock(pop, bands=bands, rng=np.random.default_rng(21), n_hb=1500,
                     obs=ObservationSpec(distance_modulus=10.0, ebv=0.1, ebv_sd=0.02, depth=depth))
     hb, rgb = np.asarray(cat["phase"]) == "hb", np.asarray(cat["phase"]) == "rgb"
-    truth = float(np.max(cat["mass"][rgb]) - np.mean(cat["mass"][hb]))
+    truth = float(np.max(cat["mass_msun"][rgb]) - np.mean(cat["mass_msun"][hb]))
     pri = Priors(distance_modulus=(10.0, 0.05), ebv=(0.1, 0.02)).with_ebv_spread("prior")
     # emcee, as the issue's command (the default sampler): the red clump's mass-loss posterior is skewed, and
     # the Laplace approximation rightly warns so (measured on G,RP: log posterior drop 0.79 instead of 2 at

@@ -12,7 +12,7 @@ from hbmodel.populations.population import MassLoss, Population
 
 def _median_hb_mass(pop, seed, n_hb=3000):
     mock = make_mock(pop, bands=("V", "I"), rng=np.random.default_rng(seed), n_hb=n_hb)
-    return float(np.median(mock["mass"][mock["phase"] == "hb"]))
+    return float(np.median(mock["mass_msun"][mock["phase"] == "hb"]))
 
 
 def test_bug1_stale_mocks_after_mass_loss_reassignment():

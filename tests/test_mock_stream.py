@@ -11,7 +11,7 @@ from hbmodel import MassLoss, Population
 from hbmodel.io import catalogues
 from hbmodel.io.catalogues import write_parquet_columns, write_parquet_groups
 from hbmodel.observation.mock import (PHASE_NAMES, EmptyMockError, ObservationSpec, make_mock_arrays,
-                                      streams_to_parquet, write_mock_parquet)
+                                      mock_column_info, streams_to_parquet, write_mock_parquet)
 
 POP = Population(-1.5, 12.5, alpha_fe=0.3, mass_loss=MassLoss.from_eta(0.45, 0.05))
 OBS = ObservationSpec(distance_modulus=15.0, ebv=0.05, depth={"V": 22.0, "I": 21.5})
@@ -22,7 +22,8 @@ def _reference(tmp_path, n_hb, seed, obs=OBS, name="ref.parquet"):
     rng = np.random.default_rng(seed)
     data, meta = make_mock_arrays(POP, bands=("V", "I"), rng=rng, n_hb=n_hb, obs=obs)
     path = tmp_path / name
-    write_parquet_columns(data, path, categories={"phase": PHASE_NAMES[:3]}, meta=META(meta))
+    write_parquet_columns(data, path, categories={"phase": PHASE_NAMES[:3]}, meta=META(meta),
+                          column_info=mock_column_info(data))
     return path, data, rng
 
 

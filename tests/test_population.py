@@ -63,7 +63,7 @@ def test_mock_reproducible_and_error_statistics():
     a = make_mock(p, bands=("V", "I"), rng=np.random.default_rng(5), n_hb=800, obs=obs)
     b = make_mock(p, bands=("V", "I"), rng=np.random.default_rng(5), n_hb=800, obs=obs)
     assert np.array_equal(np.asarray(a["V"]), np.asarray(b["V"]))
-    for col in ("phase", "mass", "teff", "logg", "logl", "is_rr", "period_days", "V", "V_err", "V_true"):
+    for col in ("phase", "mass_msun", "teff_k", "logg", "logl", "is_rr", "period_days", "V", "V_err", "V_true"):
         assert col in a.colnames
     # errors drawn into the magnitudes are Gaussian with the stated sigma (KS test, common practice)
     z = (np.asarray(a["V"]) - np.asarray(a["V_true"])) / np.asarray(a["V_err"])
@@ -81,7 +81,7 @@ def test_mock_reddening_shift_matches_extinction_library():
     a = make_mock(p, rng=np.random.default_rng(9), obs=ObservationSpec(distance_modulus=15.0), **kw)
     b = make_mock(p, rng=np.random.default_rng(9), obs=ObservationSpec(distance_modulus=15.0, ebv=0.3), **kw)
     dc = (np.asarray(b["V_true"]) - np.asarray(b["I_true"])) - (np.asarray(a["V_true"]) - np.asarray(a["I_true"]))
-    t = np.asarray(a["teff"])
+    t = np.asarray(a["teff_k"])
     expect = 0.3 * (extinction_ratio("V", t) - extinction_ratio("I", t))
     # four float32 magnitudes (stored to half an ulp: 1e-6 mag near 16 mag) make up each difference
     np.testing.assert_allclose(dc, expect, rtol=0, atol=4 * 0.5 * float(np.spacing(np.float32(16.0))))

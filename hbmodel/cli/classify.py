@@ -1,6 +1,8 @@
 """``hbmodel classify``: per-star probability of core-helium burning versus RGB."""
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 
 from hbmodel.cli.common import parse_mapping
@@ -47,26 +49,29 @@ def _typical(t, col, given, default):
 
 def run(args):
     from hbmodel.inference.classify import CHeBClassifier
-    from hbmodel.io.catalogues import check_output_file, read_catalog, write_table
+    from hbmodel.io.catalogues import check_output_file, pick_column, read_catalog, write_table
     from hbmodel.cli.distance import _population
     from hbmodel.core.limits import catalog_task_estimate, check_budget
     check_budget(catalog_task_estimate("classify", args.catalog, out=args.out), max_memory=args.max_memory,
                  max_disk=args.max_disk)
     check_output_file(args.out, force=args.force)
     mapping = parse_mapping(args.columns, "--columns")
-    req = ["teff", "logg"] + (["mass"] if args.use_mass else [])
-    t = read_catalog(args.catalog, columns=mapping or None, required=req)
+    t = read_catalog(args.catalog, columns=mapping or None, required=["logg"])
     if len(t) == 0:
         raise ValueError("the catalogue is empty")
+    # a user's teff / mass, or the unit-suffixed columns of an hbmodel mock
+    what = f"catalogue {Path(args.catalog).name}"
+    teff_col = pick_column(t, ("teff", "teff_k"), what)
+    mass_col = pick_column(t, ("mass", "mass_msun"), what) if args.use_mass else None
     pop = _population(args.feh, args.alpha_fe, args.age, args.age_range, args.eta)
     clf = CHeBClassifier(pop, teff_err_k=_typical(t, "teff_err", args.teff_err, 80.0),
                          logg_err=_typical(t, "logg_err", args.logg_err, 0.1),
                          mass_err_msun=_typical(t, "mass_err", args.mass_err, 0.1), use_mass=args.use_mass).fit()
-    teff = np.asarray(t["teff"], float)
+    teff = np.asarray(t[teff_col], float)
     logg = np.asarray(t["logg"], float)
     ok = np.isfinite(teff) & np.isfinite(logg)
     p = np.full(len(t), np.nan)
-    mass = np.asarray(t["mass"], float) if args.use_mass else None
+    mass = np.asarray(t[mass_col], float) if args.use_mass else None
     if args.use_mass:
         ok &= np.isfinite(mass)
     if ok.any():

@@ -85,7 +85,7 @@ def add_population_arguments(p: argparse.ArgumentParser, *, mass_loss_required=T
     m.add_argument("--law", default="reimers", type=_law_name,
                    help="mass-loss law, a row of tables/mass_loss_laws.csv: reimers (default), schroeder_cuntz")
     one.add_argument("--hb-masses", default=None, metavar="FILE",
-                   help="user HB-mass distribution: a table with a 'mass' column (replaces --eta/--mass-loss)")
+                   help="user HB-mass distribution: a table with a 'mass' (or 'mass_msun') column (replaces --eta/--mass-loss)")
     p.set_defaults(_mass_loss_required=mass_loss_required)
 
 
@@ -106,8 +106,10 @@ def mass_loss_from_args(args):
         raise ValueError("give only one of --eta, --mass-loss and --hb-masses")
     if args.hb_masses is not None:
         from hbmodel.io.catalogues import read_catalog
-        t = read_catalog(args.hb_masses, required=("mass",))
-        return MassLoss.from_hb_masses(np.asarray(t["mass"], float))
+        from hbmodel.io.catalogues import pick_column
+        t = read_catalog(args.hb_masses)
+        col = pick_column(t, ("mass", "mass_msun"), f"HB-mass table {args.hb_masses}")
+        return MassLoss.from_hb_masses(np.asarray(t[col], float))
     if args.eta is not None:  # MassLoss validates the values (one-line ValueError)
         return MassLoss.from_eta(args.eta, args.eta_sd, args.law)
     if args.mass_loss is not None:

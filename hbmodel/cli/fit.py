@@ -103,7 +103,12 @@ def run(args):
     if args.catalog is not None:
         cols = canonical_columns(parse_mapping(args.columns, "--columns") or None)
         cat = read_catalog(args.catalog, columns=cols, required=list(bands) + [f"{b}_err" for b in bands])
-    masses = read_catalog(args.masses, required=("mass", "mass_err")) if args.masses else None
+    masses = None
+    if args.masses:
+        from hbmodel.io.catalogues import pick_column
+        masses = read_catalog(args.masses)
+        for names in (("mass", "mass_msun"), ("mass_err", "mass_msun_err")):  # numeric, or a one-line error
+            pick_column(masses, names, f"masses table {args.masses}")
     if cat is not None and args.distance_modulus is None:
         raise ValueError("a CMD fit needs --distance-modulus DM (prior mean; width --dm-sd)")
     pop = Population(args.feh, args.age, alpha_fe=args.alpha_fe, helium=args.helium)

@@ -71,7 +71,7 @@ def add_arguments(p):
 
 def run(args):
     from hbmodel.io.catalogues import read_catalog, write_table
-    from hbmodel.observation.mock import PHASE_NAMES, ObservationSpec, make_mock_arrays, mock_table
+    from hbmodel.observation.mock import PHASE_NAMES, ObservationSpec, make_mock_arrays, mock_column_info, mock_table
 
     from hbmodel.photometry.magnitudes import parse_bands, resolve_band
     bands = list(parse_bands(args.bands, "--bands"))
@@ -142,7 +142,8 @@ def run(args):
         # the same file, written a row group at a time while the rest of the stars are computed
         try:
             counts, _meta = write_mock_parquet(pop, bands=bands, rng=rng, path=args.out, n_hb=args.n_hb,
-                                               total_mass_msun=args.total_mass, obs=obs, force=args.force)
+                                               total_mass_msun=args.total_mass, obs=obs, force=args.force,
+                                               meta_extra={"seed": args.seed})
         except EmptyMockError:
             raise ValueError(f"no star survives {what}: the mock would be empty (nothing written)") from None
         _report(args.out, counts)
@@ -151,11 +152,13 @@ def run(args):
                                   obs=obs)
     if len(data["phase"]) == 0:
         raise ValueError(f"no star survives {what}: the mock would be empty (nothing written)")
+    meta = {**meta, "seed": args.seed}
     table = None
     if str(args.out).lower().endswith(".parquet"):  # straight from the arrays (phase as categories)
         from hbmodel.io.catalogues import write_parquet_columns
         write_parquet_columns(data, args.out, force=args.force, categories={"phase": PHASE_NAMES if meta["n_field"] else PHASE_NAMES[:3]},
-                              meta={"hbmodel_mock": {k: v for k, v in meta.items() if k != "n_field"}})
+                              meta={"hbmodel_mock": {k: v for k, v in meta.items() if k != "n_field"}},
+                              column_info=mock_column_info(data))
     else:
         table = mock_table(data, meta)
         write_table(table, args.out, force=args.force)

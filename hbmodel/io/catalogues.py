@@ -59,6 +59,7 @@ __all__ = [
     "READ_FORMATS",
     "WRITE_FORMATS",
     "read_catalog",
+    "pick_column",
     "check_errors",
     "finite_rows",
     "drop_missing",
@@ -167,6 +168,18 @@ def read_catalog(path, columns: Mapping[str, str] | None = None,
         raise
     except Exception as exc:  # the contract: only ValueError / FileNotFoundError escape
         raise ValueError(" ".join(f"could not read catalogue {path}: {describe_exception(exc)}".split())) from None
+
+
+def pick_column(table, names: Sequence[str], what: str) -> str:
+    """The first of the column ``names`` present in ``table`` and numeric (e.g. ``("teff", "teff_k")``: a
+    user's column or a mock's unit-suffixed one); ValueError naming them all otherwise."""
+    for n in names:
+        if n in table.colnames:
+            if table[n].dtype.kind not in "iuf" or table[n].ndim != 1:
+                raise ValueError(f"{what}: column {n!r} is not numeric ({table[n].dtype})")
+            return n
+    raise ValueError(f"{what} lacks column {' or '.join(repr(n) for n in names)} "
+                     f"(available: {_list_names(table.colnames)})")
 
 
 def _read_catalog(path, columns, required):
@@ -284,6 +297,10 @@ def _band_alias_columns(table, required) -> None:
             table.rename_column(hits[0], req)
 
 
+#: key of the units and descriptions of the columns in the ``hbmodel_meta`` of a Parquet file
+COLUMN_INFO_KEY = "column_info"
+
+
 def _read_parquet(path: Path):
     """Read a Parquet file with pyarrow alone (astropy's reader would need pandas).
 
@@ -323,7 +340,14 @@ def _read_parquet(path: Path):
     md = pat.schema.metadata or {}
     if b"hbmodel_meta" in md:  # written by write_parquet_columns
         try:
-            table.meta.update(json.loads(md[b"hbmodel_meta"].decode("utf-8")))
+            extra = json.loads(md[b"hbmodel_meta"].decode("utf-8"))
+            info = extra.pop(COLUMN_INFO_KEY, {}) if isinstance(extra, dict) else {}
+            table.meta.update(extra)
+            for name, (unit, description) in info.items():
+                if name in table.colnames:
+                    if unit:
+                        table[name].unit = unit
+                    table[name].description = description
         except (ValueError, TypeError):
             pass
     if b"table_meta_yaml" in md:
@@ -576,6 +600,11 @@ def write_table(table, path, *, force: bool = False, meta: Mapping | None = None
             raise ValueError("meta must be a dict")
         out.meta.update({str(k): meta[k] for k in meta})
 
+    if fmt.startswith("fits"):
+        # a FITS header holds scalars only: nested metadata (e.g. a mock's population) goes in as JSON text
+        for k in list(out.meta):
+            if isinstance(out.meta[k], (Mapping, list, tuple)):
+                out.meta[k] = json_text(out.meta[k], indent=None, ensure_ascii=True)
     if fmt == "parquet" and _plain_columns(out):
         return _atomic(path, lambda tmp: _write_parquet_table(out, tmp, label=label, name=path.name), force=force)
 
@@ -669,18 +698,19 @@ def _write_parquet_table(table, tmp, *, label, name) -> None:
 
 
 def write_parquet_columns(columns: Mapping, path, *, force: bool = False, meta: Mapping | None = None,
-                          categories: Mapping | None = None) -> Path:
+                          categories: Mapping | None = None, column_info: Mapping | None = None) -> Path:
     """Write numpy ``columns`` (name -> 1-D array, all of one length) to a Parquet file, atomically,
     with pyarrow alone (no astropy: the fast path of survey-size mocks).
 
     ``categories`` maps a column of small integer codes to the names they index (written as an Arrow
     dictionary column, e.g. a mock's ``phase``); ``meta`` (JSON-serialisable) is stored in the schema
-    metadata (key ``hbmodel_meta``) and restored by :func:`read_catalog`.  Compression and encodings:
-    :func:`parquet_write_options`.  Refuses to overwrite unless ``force``."""
+    metadata (key ``hbmodel_meta``) and restored by :func:`read_catalog`, as is ``column_info``
+    (``{column: (unit, description)}``), which :func:`read_catalog` puts back on the columns.  Compression
+    and encodings: :func:`parquet_write_options`.  Refuses to overwrite unless ``force``."""
     path = _parquet_path(path, "write_parquet_columns")
     if not columns:
         raise ValueError(f"refusing to write {path.name}: the table has no columns")
-    pat = _arrow_table(columns, meta, categories, "write_parquet_columns")
+    pat = _arrow_table(columns, meta, categories, "write_parquet_columns", column_info)
     return _atomic(path, lambda tmp: _write_parquet_arrow(pat, tmp), force=force)
 
 
@@ -696,15 +726,18 @@ def _parquet_path(path, who: str) -> Path:
     return path
 
 
-def _arrow_table(columns: Mapping, meta, categories, who: str):
-    """The Arrow table of numpy ``columns`` with ``categories`` and ``meta`` as :func:`write_parquet_columns`
-    stores them."""
+def _arrow_table(columns: Mapping, meta, categories, who: str, column_info=None):
+    """The Arrow table of numpy ``columns`` with ``categories``, ``meta`` and ``column_info`` as
+    :func:`write_parquet_columns` stores them."""
     import pyarrow as pa
     categories = dict(categories or {})
     arrays = {str(k): _arrow_column(v, categories.get(k)) for k, v in columns.items()}
     if len({len(a) for a in arrays.values()}) != 1:
         raise ValueError(f"{who}: columns of unequal length")
     pat = pa.table(arrays)
+    if column_info:
+        meta = {**(meta or {}), COLUMN_INFO_KEY: {str(k): [str(u), str(d)] for k, (u, d) in column_info.items()
+                                                  if k in arrays}}
     if meta:
         text = json_text(meta, indent=None, ensure_ascii=True)
         pat = pat.replace_schema_metadata({b"hbmodel_meta": text.encode("utf-8")})
@@ -720,7 +753,7 @@ def _datasync(fd) -> None:
 
 
 def write_parquet_groups(produce, path, *, force: bool = False, meta: Mapping | None = None,
-                         categories: Mapping | None = None) -> Path:
+                         categories: Mapping | None = None, column_info: Mapping | None = None) -> Path:
     """Write a Parquet file row group by row group, atomically, while the rows are being computed.
 
     ``produce(emit)`` computes the table and calls ``emit(columns)`` once per row group, in order
@@ -749,7 +782,7 @@ def write_parquet_groups(produce, path, *, force: bool = False, meta: Mapping | 
                 state["synced"].append(syncer.submit(_datasync, state["fd"]))  # the final fsync finds little
 
         def emit(columns):
-            pat = _arrow_table(columns, meta, categories, "write_parquet_groups")
+            pat = _arrow_table(columns, meta, categories, "write_parquet_groups", column_info)
             if state["schema"] is None:
                 state["schema"] = pat.schema
             elif not pat.schema.equals(state["schema"], check_metadata=False):

@@ -23,7 +23,7 @@ import numpy as np
 from hbmodel.physics.imf import imf_number_density
 from hbmodel.populations.population import Population
 
-__all__ = ["ObservationSpec", "make_mock", "make_mock_arrays", "mock_table", "PHASE_NAMES", "star_sampler", "expected_hb_count", "imf_number_density",
+__all__ = ["ObservationSpec", "make_mock", "make_mock_arrays", "mock_table", "column_info", "mock_column_info", "STAR_COLUMNS", "PHASE_NAMES", "star_sampler", "expected_hb_count", "imf_number_density",
            "stars_per_hb_star", "mock_estimate", "ChunkPlan", "plan_chunked_mock", "write_chunked_mock",
            "write_mock_parquet", "streams_to_parquet", "EmptyMockError"]
 
@@ -122,15 +122,44 @@ PHASE_NAMES = ("rgb", "hb", "agb", "field")
 COMPACT_DTYPE = np.float32
 
 
+#: Unit (astropy unit string; "" for none) and description of each star column of a mock.
+STAR_COLUMNS = {
+    "phase": ("", "evolutionary phase: rgb (red giant branch), hb (core-helium burning: horizontal branch or "
+                  "red clump), agb (early asymptotic giant branch), field (contaminant)"),
+    "mass_msun": ("solMass", "present stellar mass"),
+    "teff_k": ("K", "effective temperature"),
+    "logg": ("", "log10 of the surface gravity in cm s-2"),
+    "logl": ("", "log10 of the luminosity in solar luminosities"),
+    "is_rr": ("", "inside the RR Lyrae instability strip"),
+    "rr_mode": ("", "RR Lyrae pulsation mode: 0 none, 1 fundamental (RRab), 2 first overtone (RRc)"),
+    "period_days": ("d", "pulsation period of an RR Lyrae star (NaN for other stars)"),
+    "ebv": ("mag", "colour excess E(B-V) in front of the star"),
+}
+
+
+def column_info(name: str) -> tuple[str, str]:
+    """``(unit, description)`` of a mock catalogue column (a star column or ``<band>``, ``<band>_err``,
+    ``<band>_true``)."""
+    if name in STAR_COLUMNS:
+        return STAR_COLUMNS[name]
+    if name.endswith("_err"):
+        return "mag", f"1-sigma photometric error of {name[:-4]}"
+    if name.endswith("_true"):
+        return "mag", f"true apparent {name[:-5]} magnitude (distance and extinction, before the errors)"
+    return "mag", f"observed apparent {name} magnitude (with its photometric error)"
+
+
 def make_mock(population: Population, *, bands, rng: np.random.Generator, n_hb=None, total_mass_msun=None,
               obs: ObservationSpec = ObservationSpec()):
     """Generate a mock catalogue (astropy Table) of RGB, HB and early-AGB stars (and field stars).
 
     Stars come from the population's tabulated sampler (:mod:`hbmodel.populations.sampler`).  Columns: ``phase``
-    (rgb/hb/agb/field), ``mass`` [Msun], ``teff`` [K], ``logg`` [cgs], ``logl`` [Lsun], ``is_rr``,
+    (rgb/hb/agb/field), ``mass_msun``, ``teff_k``, ``logg`` [cgs], ``logl`` [Lsun], ``is_rr``,
     ``rr_mode`` (0 none, 1 RRab, 2 RRc), ``period_days``, ``ebv``, and per band ``<band>`` (observed
-    apparent magnitude), ``<band>_err``, ``<band>_true``.  Real-valued columns are float32
-    (:data:`COMPACT_DTYPE`); the arrays themselves: :func:`make_mock_arrays`.
+    apparent magnitude), ``<band>_err``, ``<band>_true``; each column carries its unit and description
+    (:func:`column_info`), the table's metadata (``hbmodel_mock``) the population, observation and version
+    that made it.  Real-valued columns are float32 (:data:`COMPACT_DTYPE`); the arrays themselves:
+    :func:`make_mock_arrays`.
     """
     data, meta = make_mock_arrays(population, bands=bands, rng=rng, n_hb=n_hb, total_mass_msun=total_mass_msun,
                                   obs=obs)
@@ -144,8 +173,18 @@ def mock_table(data: dict, meta: dict):
     width = "<U5" if np.any(data["phase"] == PHASE_NAMES.index("field")) or meta.get("n_field") else "<U3"
     data["phase"] = np.array(PHASE_NAMES, dtype=width)[data["phase"]]
     t = Table(data, copy=False)
+    for name in t.colnames:
+        unit, description = column_info(name)
+        if unit:
+            t[name].unit = unit
+        t[name].description = description
     t.meta["hbmodel_mock"] = {k: v for k, v in meta.items() if k != "n_field"}
     return t
+
+
+def mock_column_info(names) -> dict:
+    """``{column: [unit, description]}`` of the mock columns ``names`` (stored with Parquet mocks)."""
+    return {n: list(column_info(n)) for n in names}
 
 
 def make_mock_arrays(population: Population, *, bands, rng: np.random.Generator, n_hb=None,
@@ -214,7 +253,7 @@ def make_mock_arrays(population: Population, *, bands, rng: np.random.Generator,
     observed, errors, detected = observe_magnitudes(true, rng, error_laws=laws, completeness=completeness,
                                                     completeness_band=cband if completeness else None,
                                                     dtype=COMPACT_DTYPE)
-    return _catalogue(cols, true, observed, errors, detected, obs, bands), _mock_meta(n_hb, obs, bands)
+    return _catalogue(cols, true, observed, errors, detected, obs, bands), _mock_meta(n_hb, obs, bands, population)
 
 
 def _mock_inputs(population, bands, rng, n_hb, total_mass_msun, obs):
@@ -239,16 +278,18 @@ def _mock_inputs(population, bands, rng, n_hb, total_mass_msun, obs):
     return bands, int(n_hb), rng
 
 
-def _mock_meta(n_hb, obs, bands):
+def _mock_meta(n_hb, obs, bands, population):
+    from hbmodel.core.version import __version__
     return {"n_hb_drawn": int(n_hb), "distance_modulus": obs.distance_modulus,
-            "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands), "n_field": int(obs.n_field)}
+            "ebv": obs.ebv, "rv": obs.rv, "law": obs.law, "bands": list(bands), "n_field": int(obs.n_field),
+            "population": population.to_dict(), "hbmodel_version": __version__}
 
 
 def _star_columns(d, ebv_star, rows=slice(None)):
     """The catalogue's star columns (before the photometry) of the sampler's output ``d``, rows ``rows``."""
     from hbmodel.physics.pulsation import MODE_NONE
     mode = d["rr_mode"][rows]
-    return {"phase": d["phase"][rows], "mass": d["mass"][rows], "teff": d["teff"][rows], "logg": d["logg"][rows],
+    return {"phase": d["phase"][rows], "mass_msun": d["mass"][rows], "teff_k": d["teff"][rows], "logg": d["logg"][rows],
             "logl": d["logl"][rows], "is_rr": mode != MODE_NONE, "rr_mode": mode.astype(np.int16),
             "period_days": d["period_days"][rows], "ebv": ebv_star}
 
@@ -298,7 +339,7 @@ def _band_generators(rng: np.random.Generator, n_bands: int, n: int):
 
 
 def write_mock_parquet(population: Population, *, bands, rng: np.random.Generator, path, n_hb=None,
-                       total_mass_msun=None, obs: ObservationSpec = ObservationSpec(), force=False):
+                       total_mass_msun=None, obs: ObservationSpec = ObservationSpec(), force=False, meta_extra=None):
     """:func:`make_mock_arrays` written straight to a Parquet file (as :func:`hbmodel.io.catalogues.write_parquet_columns`
     would write it: the same rows, columns and metadata) without holding the catalogue: rows are observed
     and written, a row group at a time in a background thread, while the sampler computes the next.
@@ -314,7 +355,7 @@ def write_mock_parquet(population: Population, *, bands, rng: np.random.Generato
         raise ValueError("write_mock_parquet: this mock needs the whole catalogue at once (use make_mock_arrays)")
     laws = {b: default_error_law(b, depth_mag=float(obs.depth[b])) for b in bands}
     sampler = star_sampler(population, bands, obs.rv, obs.law)
-    meta = _mock_meta(n_hb, obs, bands)
+    meta = {**_mock_meta(n_hb, obs, bands, population), **(meta_extra or {})}
     counts = np.zeros(len(PHASE_NAMES), np.int64)
 
     def produce(emit):
@@ -347,8 +388,10 @@ def write_mock_parquet(population: Population, *, bands, rng: np.random.Generato
         if counts.sum() == 0:
             raise EmptyMockError("no star survives the window: the mock would be empty (nothing written)")
 
+    names = list(STAR_COLUMNS) + [f"{b}{s}" for b in bands for s in ("", "_err", "_true")]
     write_parquet_groups(produce, path, force=force, categories={"phase": PHASE_NAMES[:3]},
-                         meta={"hbmodel_mock": {k: v for k, v in meta.items() if k != "n_field"}})
+                         meta={"hbmodel_mock": {k: v for k, v in meta.items() if k != "n_field"}},
+                         column_info=mock_column_info(names))
     return counts, meta
 
 
@@ -423,13 +466,13 @@ class _MockChunk:
         self.field_sizes = tuple(field_sizes)
 
     def __call__(self, index, n, seed_sequence):
-        import pyarrow as pa
-
-        from hbmodel.io.catalogues import _arrow_column
+        from hbmodel.io.catalogues import _arrow_table
         rng = np.random.default_rng(seed_sequence)
         obs = replace(self.obs, n_field=self.field_sizes[index])
-        data, _meta = make_mock_arrays(self.population, bands=self.bands, rng=rng, n_hb=int(n), obs=obs)
-        return pa.table({c: _arrow_column(v, PHASE_NAMES if c == "phase" else None) for c, v in data.items()})
+        data, meta = make_mock_arrays(self.population, bands=self.bands, rng=rng, n_hb=int(n), obs=obs)
+        meta = {k: v for k, v in meta.items() if k != "n_field"}
+        return _arrow_table(data, {"hbmodel_mock": {**meta, "partition": int(index)}}, {"phase": PHASE_NAMES},
+                            "mock partition", mock_column_info(data))
 
 
 @dataclass(frozen=True)

@@ -30,12 +30,13 @@ _CLUMP_TEFF_K = 5600.0
 def hb_phase_label(table) -> str:
     """"red clump" when every core-helium-burning star is cooler than 5600 K (a clump population),
     "HB" when some are hotter (a horizontal branch), "HB / clump" when the catalogue has no Teff."""
-    if "teff" not in table.colnames or "phase" not in table.colnames:
+    col = next((c for c in ("teff_k", "teff") if c in table.colnames), None)  # a mock's, or a user's column
+    if col is None or "phase" not in table.colnames:
         return "HB / clump"
     hb = np.asarray(table["phase"]).astype(str) == "hb"
     if not hb.any():
         return "HB"
-    teff = np.asarray(table["teff"], float)[hb]
+    teff = np.asarray(table[col], float)[hb]
     return "red clump" if np.all(teff[np.isfinite(teff)] < _CLUMP_TEFF_K) else "HB"
 
 

@@ -297,6 +297,18 @@ class Population:
     def __deepcopy__(self, memo):
         return self
 
+    def to_dict(self) -> dict:
+        """The defining values as plain Python (JSON/YAML-ready): written into the metadata of mocks."""
+        ml = self.mass_loss
+        mass_loss = {"kind": ml.kind, "law": ml.law, "components": [list(map(float, c)) for c in ml.components]}
+        if ml.samples is not None:
+            mass_loss["n_samples"] = len(ml.samples)
+        return {"components": [{"age_gyr": float(c.age_gyr), "feh": float(c.feh), "alpha_fe": float(c.alpha_fe),
+                                "weight": float(c.weight)} for c in self.components],
+                "helium": None if self.helium is None else float(self.helium), "mass_loss": mass_loss,
+                "helium_enriched_fraction": self.helium_enriched_fraction, "helium_delta_y": self.helium_delta_y,
+                "logl_rgb_min": self.logl_rgb_min}
+
     def __repr__(self):
         comps = self.components
         if len(comps) == 1:
