@@ -66,3 +66,18 @@ def test_classify_reads_a_mock_with_unit_suffixed_columns(tmp_path):
     p = np.asarray(t["p_cheb"], float)
     # a noiseless mock: the core-helium-burning stars are far more probable CHeB than the RGB stars
     assert np.nanmean(p[ph == "hb"]) > 0.5 > np.nanmean(p[ph == "rgb"])
+
+
+def test_input_columns_accept_the_unit_suffixed_names_and_name_both_when_missing():
+    from hbmodel.io.catalogues import pick_column
+    t = Table({"teff_k": [4800.0], "mass": [1.1], "mass_msun_err": [0.05], "label": ["x"]})
+    assert pick_column(t, "teff", "cat") == "teff_k"
+    assert pick_column(t, "mass", "cat") == "mass"          # the plain name first
+    assert pick_column(t, "mass_err", "cat") == "mass_msun_err"
+    with pytest.raises(ValueError, match="'logg'"):
+        pick_column(t, "logg", "cat")
+    t2 = Table({"teff": ["hot"]})
+    with pytest.raises(ValueError, match="not numeric"):
+        pick_column(t2, "teff", "cat")
+    with pytest.raises(ValueError, match="'mass' or 'mass_msun'"):
+        pick_column(Table({"phase": ["rgb"]}), "mass", "masses table")

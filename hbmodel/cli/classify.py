@@ -61,8 +61,8 @@ def run(args):
         raise ValueError("the catalogue is empty")
     # a user's teff / mass, or the unit-suffixed columns of an hbmodel mock
     what = f"catalogue {Path(args.catalog).name}"
-    teff_col = pick_column(t, ("teff", "teff_k"), what)
-    mass_col = pick_column(t, ("mass", "mass_msun"), what) if args.use_mass else None
+    teff_col = pick_column(t, "teff", what)
+    mass_col = pick_column(t, "mass", what) if args.use_mass else None
     pop = _population(args.feh, args.alpha_fe, args.age, args.age_range, args.eta)
     clf = CHeBClassifier(pop, teff_err_k=_typical(t, "teff_err", args.teff_err, 80.0),
                          logg_err=_typical(t, "logg_err", args.logg_err, 0.1),

@@ -108,7 +108,7 @@ def mass_loss_from_args(args):
         from hbmodel.io.catalogues import read_catalog
         from hbmodel.io.catalogues import pick_column
         t = read_catalog(args.hb_masses)
-        col = pick_column(t, ("mass", "mass_msun"), f"HB-mass table {args.hb_masses}")
+        col = pick_column(t, "mass", f"HB-mass table {args.hb_masses}")
         return MassLoss.from_hb_masses(np.asarray(t[col], float))
     if args.eta is not None:  # MassLoss validates the values (one-line ValueError)
         return MassLoss.from_eta(args.eta, args.eta_sd, args.law)

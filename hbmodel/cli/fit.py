@@ -107,8 +107,8 @@ def run(args):
     if args.masses:
         from hbmodel.io.catalogues import pick_column
         masses = read_catalog(args.masses)
-        for names in (("mass", "mass_msun"), ("mass_err", "mass_msun_err")):  # numeric, or a one-line error
-            pick_column(masses, names, f"masses table {args.masses}")
+        for name in ("mass", "mass_err"):  # present and numeric, or a one-line error before any work
+            pick_column(masses, name, f"masses table {args.masses}")
     if cat is not None and args.distance_modulus is None:
         raise ValueError("a CMD fit needs --distance-modulus DM (prior mean; width --dm-sd)")
     pop = Population(args.feh, args.age, alpha_fe=args.alpha_fe, helium=args.helium)

@@ -60,6 +60,7 @@ __all__ = [
     "WRITE_FORMATS",
     "read_catalog",
     "pick_column",
+    "COLUMN_ALTERNATIVES",
     "check_errors",
     "finite_rows",
     "drop_missing",
@@ -170,9 +171,16 @@ def read_catalog(path, columns: Mapping[str, str] | None = None,
         raise ValueError(" ".join(f"could not read catalogue {path}: {describe_exception(exc)}".split())) from None
 
 
-def pick_column(table, names: Sequence[str], what: str) -> str:
-    """The first of the column ``names`` present in ``table`` and numeric (e.g. ``("teff", "teff_k")``: a
-    user's column or a mock's unit-suffixed one); ValueError naming them all otherwise."""
+#: Input columns that may also come under the unit-suffixed names hbmodel's own mocks write.
+COLUMN_ALTERNATIVES = {"teff": ("teff", "teff_k"), "mass": ("mass", "mass_msun"),
+                       "mass_err": ("mass_err", "mass_msun_err")}
+
+
+def pick_column(table, name: str, what: str) -> str:
+    """The column standing for ``name`` in ``table``: ``name`` itself or one of its
+    :data:`COLUMN_ALTERNATIVES` (a user's ``teff`` or a mock's ``teff_k``), the first present; it must be
+    numeric.  ValueError naming the accepted names otherwise."""
+    names = COLUMN_ALTERNATIVES.get(name, (name,))
     for n in names:
         if n in table.colnames:
             if table[n].dtype.kind not in "iuf" or table[n].ndim != 1:

@@ -167,15 +167,12 @@ class _DataMixin:
 
     def _prepare_masses(self, masses):
         t = _read_table_like(masses, "masses")
-        # the columns mass, mass_err (or the unit-suffixed mass_msun, mass_msun_err) and phase
-        names = {"mass": ("mass", "mass_msun"), "mass_err": ("mass_err", "mass_msun_err"), "phase": ("phase",)}
-        found = {k: next((c for c in v if c in t.colnames), None) for k, v in names.items()}
-        for k, c in found.items():
-            if c is None:
-                raise ValueError(f"masses table lacks column {k!r} (need mass, mass_err, phase; "
-                                 f"mass_msun, mass_msun_err also accepted)")
-        m = np.asarray(t[found["mass"]], float)
-        e = np.asarray(t[found["mass_err"]], float)
+        # mass, mass_err (or the unit-suffixed mass_msun, mass_msun_err of a mock) and phase
+        from hbmodel.io.catalogues import pick_column
+        m = np.asarray(t[pick_column(t, "mass", "masses table")], float)
+        e = np.asarray(t[pick_column(t, "mass_err", "masses table")], float)
+        if "phase" not in t.colnames:
+            raise ValueError("masses table lacks column 'phase' (need mass, mass_err, phase)")
         ph = np.char.lower(np.asarray(t["phase"]).astype(str))
         if len(m) == 0:
             raise ValueError("the masses table is empty")
