@@ -112,6 +112,32 @@ def test_decam_follows_des_dr2_and_ps1_solves_its_own_colour():
     np.testing.assert_allclose(m["SDSS_i"] - m["PS1_i"], -0.005 + 0.011 * x + 0.010 * x * x, atol=1e-8)
 
 
+def test_ps1_y_and_decam_y_follow_their_published_relations():
+    # Tonry et al. 2012, ApJ 750, 99, Table 6, row x = (g-r)_P1: z_SDSS - y_P1 = -0.031 + 0.111 x + 0.004 x^2 (read as
+    # reproduced in public code); DES DR2 transformations (Abbott et al. 2021): y_PS1 = Y_DES + 0.031 (r-i)_DES - 0.034
+    teff, logg, feh = GIANT
+    m = absolute_magnitudes(teff, logg, feh, 1.7, ("SDSS_z", "PS1_g", "PS1_r", "PS1_y", "DECam_r", "DECam_i", "DECam_Y"))
+    x = m["PS1_g"] - m["PS1_r"]
+    np.testing.assert_allclose(m["SDSS_z"] - m["PS1_y"], -0.031 + 0.111 * x + 0.004 * x * x, atol=1e-8)
+    np.testing.assert_allclose(m["PS1_y"], m["DECam_Y"] + 0.031 * (m["DECam_r"] - m["DECam_i"]) - 0.034, atol=1e-9)
+
+
+def test_ps1_y_of_giants_agrees_with_the_independent_finkbeiner_2016_relation():
+    # Finkbeiner et al. 2016, ApJ 822, 66: y_P1 - z_SDSS = 0.08924 - 0.20878 x + 0.10360 x^2 - 0.02441 x^3,
+    # x = (g-i)_P1, valid 0.4 < x < 2.7 (main-sequence stars; the paper calls its y row less reliable than griz).
+    # Read as reproduced in public code (the constant and cubic terms in two copies).  A different paper, a different
+    # colour and a cubic form: the Tonry et al. 2012 y of the model's K giants must agree with it to 0.03 mag, about
+    # the quadrature sum of the two relations' scatters (common practice)
+    teff = np.array([4300.0, 4700.0, 5000.0, 5500.0])
+    m = absolute_magnitudes(teff, np.array([2.0, 2.5, 2.5, 3.0]), -0.5, 1.7, ("SDSS_z", "PS1_g", "PS1_i", "PS1_y"))
+    x = m["PS1_g"] - m["PS1_i"]
+    assert np.all((x > 0.4) & (x < 2.7))
+    f16 = 0.08924 - 0.20878 * x + 0.10360 * x ** 2 - 0.02441 * x ** 3
+    np.testing.assert_allclose(m["PS1_y"] - m["SDSS_z"], f16, atol=0.03)
+    # and z - y reddens towards cooler giants in both
+    assert np.all(np.diff(m["PS1_y"] - m["SDSS_z"]) > 0) and np.all(np.diff(f16) > 0)
+
+
 def test_lsst_griz_follow_rtn_099_table_1_inside_its_colour_ranges():
     # Rubin technical note RTN-099, Table 1 (DES -> LSST, synthetic LSSTCam, v_2025_08_22):
     # g = g_DES + 0.016 (g-i) - 0.003 (g-i)^2 + 0.006; r = r_DES + 0.185 (r-i) - 0.015 (r-i)^2 + 0.010;
@@ -236,7 +262,7 @@ def test_hot_hb_stars_are_refused_in_the_u_band_and_bands_without_a_relation_are
     # a cool M giant beyond Rc-Ic = 1.15 (the range of Jester et al. 2005) is not extrapolated
     with pytest.raises(ValueError, match="Rc-Ic < 1.15"):
         absolute_magnitudes(np.array([3300.0]), 0.5, 0.0, 3.0, ("SDSS_g",))
-    for band in ("UVIS_F606W", "UVIS_F336W", "IR_F160W", "LSST_u", "LSST_y", "PS1_y", "DECam_Y"):
+    for band in ("UVIS_F606W", "UVIS_F336W", "IR_F160W", "LSST_u", "LSST_y"):
         with pytest.raises(ValueError, match="no published colour relation is tabulated"):
             absolute_magnitudes(np.array([4700.0]), 2.5, 0.0, 1.7, (band,))
     # inside the range the grid path agrees with the direct path (< 1e-3 mag, as for the core bands)
