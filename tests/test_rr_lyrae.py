@@ -173,6 +173,22 @@ def test_zahb_mass_at_strip_falls_with_metallicity():
     assert 0.58 <= mass.min() + 0.03 and mass.max() <= 0.78
 
 
+def test_oosterhoff_i_mean_rrab_period_is_longer_in_more_metal_poor_clusters():
+    # Clement et al. 2001, AJ 122, 2587 (abstract, https://ar5iv.labs.arxiv.org/html/astro-ph/0108024): "The mean
+    # period of the RR Lyrae variables in the Oosterhoff type I clusters seems to be correlated with metal abundance in
+    # the sense that the periods are longer in the more metal poor clusters."  Oosterhoff I HB types (-0.3...+0.3,
+    # common practice), eta fitted to each HB ratio as in the cluster benchmark
+    from hbmodel.calibration.benchmark import _gc_predictions
+    from hbmodel.calibration.evaluators import eta_for_hb_ratio as eta_fit
+    for hbr in (-0.3, 0.3):
+        pab = []
+        for feh in (-1.8, -1.4, -1.0):
+            eta, sat = eta_fit(hbr, feh)
+            assert sat == 0
+            pab.append(_gc_predictions(feh, eta, 12.5, 0.3)[0]["pab_mean"])
+        assert pab[0] > pab[1] > pab[2], (hbr, pab)
+
+
 @pytest.mark.xfail(reason="known defect (issue 13): at [Fe/H] -1.5 <Pab> is U-shaped in HB type (0.585 d at HB "
                           "ratio -0.3, 0.565 d at +0.7 with the calibrated strip): the red-HB RRab sit at the red "
                           "edge of the strip", strict=False)
@@ -207,7 +223,8 @@ def test_oosterhoff_ii_mean_rrab_period_does_not_fall_with_metallicity():
     # Observed very blue HBs: M92 ([Fe/H] -2.31, HB ratio 0.91) <Pab> 0.630 d (Kopacki 2001, A&A 369, 862); M22
     # (-1.76, 0.97) 0.66 d (Kunder et al. 2013, AJ 146, 119); M2 (-1.65, 0.96) 0.685 d (Lee & Carney 1999, AJ 117,
     # 2868): the evolved RR Lyrae of intermediate-metallicity blue HBs are brighter (Lee, Demarque & Zinn 1990,
-    # ApJ 350, 155).  A model with the same track shape at every Z gave 0.682 d at -2.31 and 0.626 d at -1.65
+    # ApJ 350, 155); Clement et al. 2001, AJ 122, 2587 (abstract): no correlation of the mean period with [Fe/H] among
+    # the Oosterhoff II clusters.  A model with the same track shape at every Z gave 0.682 d at -2.31 and 0.626 d at -1.65
     # (falling with [Fe/H], because the ZAHB is fainter at higher Z)
     p_poor, _ = _oo2_statistics(-2.3)
     p_int, _ = _oo2_statistics(-1.65)
