@@ -39,7 +39,7 @@ def test_registry_has_every_new_band_with_a_real_passband_and_keeps_the_core_set
 @pytest.mark.parametrize("band,published", [
     # Schlafly & Finkbeiner 2011, ApJ 737, 103, Table 6 (R_V = 3.1, F99): A_b/E(B-V)_SFD of ACS F606W 2.471,
     # ACS F814W 1.526, Landolt V 2.742 (read as reproduced in public code: BASTAcode/BASTA src/basta/constants.py and two
-    # further copies, see tests/test_hst_extinction_targets.py); the ratio A_band/A_V is free of the SFD scale.
+    # further copies, see tests/test_extinction_targets.py); the ratio A_band/A_V is free of the SFD scale.
     ("ACS_F606W", 2.471 / 2.742),
     ("ACS_F814W", 1.526 / 2.742),
 ])

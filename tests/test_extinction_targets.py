@@ -1,11 +1,14 @@
-"""HST extinction ratios against published tables (issue 19, validation rows).
+"""HST and wide-field survey extinction ratios against published tables (issue 19, validation rows).
 
 Sources of the published numbers (each named beside its check):
 * Schlafly & Finkbeiner 2011, ApJ 737, 103, Table 6 (R_V = 3.1, Fitzpatrick 1999 law, 7,000 K source spectrum):
   A_b / E(B-V)_SFD, read as reproduced in public code (BASTAcode/BASTA src/basta/constants.py for the HST and SDSS
   entries; Landolt V 2.742 in gregreen/dustmaps dustmaps/tests/test_sfd.py, A_V = 2.742 E(B-V)_SFD checked against the
   IRSA SF11 values, and in two further codes labelling it "Schlafly & Finkbeiner (2011), Table 6").
-  Ratios of two entries of one column are free of the SFD E(B-V) rescaling.
+  Ratios of two entries of one column are free of the SFD E(B-V) rescaling.  The survey entries of the same table:
+  SDSS u g r i z and DECam g r i z Y in the SF11-labelled blocks of the same file (the same numbers in independent
+  public codes listing SDSS and DES reddening coefficients); Pan-STARRS1 g r i z y as the R_V = 3.1 vector of
+  cylammarco/WDPhotTools test/test_reddening.py (the same five values in several codes de-reddening PS1 photometry).
 * Casagrande & VandenBerg 2014, MNRAS 444, 392: Teff-dependent fits R = a0 + T4 (a1 + a2 T4) + a3 [Fe/H] of the
   Johnson-Cousins reddening coefficients from MARCS fluxes, read in the CV14-labelled block of the same file; their
   extinction law (Cardelli et al. 1989, R_V = 3.1) is recalled from memory.
@@ -25,6 +28,11 @@ SF11_TABLE6 = {         # SF11 Table 6, R_V = 3.1: A_b / E(B-V)_SFD
     "UVIS_F336W": 4.453, "UVIS_F438W": 3.623, "UVIS_F606W": 2.488, "UVIS_F814W": 1.536,
     "IR_F110W": 0.881, "IR_F160W": 0.512,
 }
+SF11_SURVEYS = {        # the same table's survey bands
+    "SDSS_u": 4.239, "SDSS_g": 3.303, "SDSS_r": 2.285, "SDSS_i": 1.698, "SDSS_z": 1.263,
+    "PS1_g": 3.172, "PS1_r": 2.271, "PS1_i": 1.682, "PS1_z": 1.322, "PS1_y": 1.087,
+    "DECam_g": 3.237, "DECam_r": 2.176, "DECam_i": 1.595, "DECam_z": 1.217, "DECam_Y": 1.058,
+}
 ISSUE_TOL = 0.03
 
 
@@ -32,11 +40,19 @@ def _ratio(band, teff, law="F99", ref="V"):
     return float(extinction_ratio(band, teff, 3.1, law) / extinction_ratio(ref, teff, 3.1, law))
 
 
-@pytest.mark.parametrize("band", sorted(SF11_TABLE6))
-def test_hst_extinction_ratios_match_schlafly_finkbeiner_2011_table_6(band):
+@pytest.mark.parametrize("band", sorted({**SF11_TABLE6, **SF11_SURVEYS}))
+def test_extinction_ratios_match_schlafly_finkbeiner_2011_table_6(band):
     # SF11 Table 6 (read as reproduced in public code): their 7,000 K source spectrum, F99, R_V = 3.1
-    published = SF11_TABLE6[band] / SF11_V
+    published = {**SF11_TABLE6, **SF11_SURVEYS}[band] / SF11_V
     assert _ratio(band, 7000.0) == pytest.approx(published, abs=ISSUE_TOL), band
+
+
+def test_g_bands_of_three_surveys_redden_in_the_published_order():
+    # SF11 Table 6: SDSS g 3.303 > DECam g 3.237 > PS1 g 3.172 (the PS1 g passband reaches furthest to the red).  The
+    # differences (0.024-0.048 in A/A_V) come from the passband shapes alone, so they test the curves, not the law.
+    sdss, decam, ps1 = (_ratio(b, 7000.0) for b in ("SDSS_g", "DECam_g", "PS1_g"))
+    assert sdss > decam > ps1
+    assert sdss - ps1 == pytest.approx((3.303 - 3.172) / SF11_V, abs=0.01)
 
 
 def test_f814w_to_f606w_extinction_ratio_is_free_of_the_v_band_normalisation():
@@ -102,21 +118,22 @@ HST_ROWS = ("photometry.sf11_acs_f435w", "photometry.sf11_acs_f606w", "photometr
             "photometry.sf11_uvis_f336w", "photometry.sf11_uvis_f438w", "photometry.sf11_uvis_f606w",
             "photometry.sf11_uvis_f814w", "photometry.sf11_ir_f110w", "photometry.sf11_ir_f160w",
             "photometry.cv14_kgiant_b", "photometry.cv14_kgiant_r", "photometry.cv14_kgiant_i")
+EXTINCTION_ROWS = HST_ROWS + tuple("photometry.sf11_" + b.lower() for b in SF11_SURVEYS)
 
 
 def test_extinction_check_rows_are_held_out_read_and_pass_the_scorecard():
     t = read_targets(stage="photometry")
-    rows = [r for r in t if r["id"] in HST_ROWS]
-    assert {r["id"] for r in rows} == set(HST_ROWS)
+    rows = [r for r in t if r["id"] in EXTINCTION_ROWS]
+    assert {r["id"] for r in rows} == set(EXTINCTION_ROWS)
     for r in rows:   # read (not recalled), held out, with the table and the address where it was read
         assert r["role"] == "check" and r["obtained"] == "read" and r["location"] and r["url"], r["id"]
     fitted = {r["id"] for st in STAGES for r in st.fit_rows()}
-    assert not fitted & set(HST_ROWS)
+    assert not fitted & set(EXTINCTION_ROWS)
     for s in score_rows(rows):
         assert np.isfinite(s.model), (s.id, s.reason)
         assert s.passed, (s.id, s.reason)
     # each row's value is the published ratio itself (SF11 Table 6 entries over Landolt V 2.742)
     by_id = {r["id"]: r for r in rows}
-    for band, num in SF11_TABLE6.items():
+    for band, num in {**SF11_TABLE6, **SF11_SURVEYS}.items():
         rid = "photometry.sf11_" + band.lower()
         assert float(by_id[rid]["value"]) == pytest.approx(num / SF11_V, abs=1e-4), rid
