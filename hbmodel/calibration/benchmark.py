@@ -5,7 +5,7 @@ is solved (bisection, star-to-star spread fixed at :data:`~.evaluators.ETA_SPREA
 model's HB ratio equals the observed one, at the cluster's [Fe/H], [alpha/Fe] = +0.3 and age
 (12.5 Gyr where none is published; common practice for old-halo clusters).  The model then predicts
 the mean RRab and RRc periods, the RRc fraction, the RGB-bump offset from the HB, the R-parameter
-and, where measured, the RGB and red-HB masses, each compared with the published value (a pull with
+and, where measured, the RGB, HB, RR Lyrae and red-HB masses, each compared with the published value (a pull with
 the target's uncertainty and the surrogate's stated accuracy).  For open clusters the RGB mass is
 predicted from the age and [Fe/H], and the eta implied by the measured RGB - red clump mass
 difference is reported.
@@ -19,13 +19,15 @@ import numpy as np
 from hbmodel.calibration.evaluators import ETA_SPREAD_OLD, NotModelled, _Cached, eta_for_hb_ratio
 from hbmodel.calibration.scorecard import sigma_model
 from hbmodel.core.tables import table_cache
+from hbmodel.physics.pulsation import strip_edges
 from hbmodel.calibration.targets import read_clusters
 
 __all__ = ["ClusterResult", "run_benchmark", "cluster_rows", "cluster_value", "oosterhoff_criterion", "PREDICTED_QUANTITIES"]
 
 _MODEL_QUANTITY = {"pab_mean": "rrab_period_mean", "pc_mean": "rrab_period_mean", "f_rrc": "rrc_fraction",
                    "dv_bump_hb": "bump_minus_hb_mag", "r_parameter": "r_parameter",
-                   "mass_rgb_msun": "tip_mass_msun", "mass_rc_msun": "tip_mass_msun"}
+                   "mass_rgb_msun": "tip_mass_msun", "mass_rc_msun": "tip_mass_msun",
+                   "mass_rr_msun": "tip_mass_msun", "mass_rhb_msun": "tip_mass_msun"}
 #: benchmark quantities the model predicts (everything but the inputs [Fe/H], age and HB ratio)
 PREDICTED_QUANTITIES = tuple(_MODEL_QUANTITY)
 
@@ -84,6 +86,17 @@ def _gc_predictions(feh, eta, age, alpha):
         why["dv_bump_hb"] = "the model does not predict the RGB-bump magnitude"
     out["mass_rgb_msun"] = float(p["tip_mass"])
     out["mass_rc_msun"] = float(p["hb_mass_mean"]) if p.get("hb_mass_mean") is not None else np.nan
+    # mean masses of the RR Lyrae and of the red HB (core-He-burning stars cooler than the fundamental red edge
+    # at their own luminosity and mass), for seismic masses of the two groups (e.g. M4, Molnar et al. 2025)
+    out["mass_rr_msun"] = (float(np.sum(st.mass_msun[rr] * st.weight[rr]) / w_rr) if w_rr > 0 else np.nan)
+    hb = st.phase == "hb"
+    _, red_edge = strip_edges(st.logl[hb], st.mass_msun[hb])
+    red = (st.rr_mode[hb] == 0) & (st.logteff[hb] < red_edge)
+    w_red = st.weight[hb][red].sum()
+    if w_red > 0:
+        out["mass_rhb_msun"] = float(np.sum(st.mass_msun[hb][red] * st.weight[hb][red]) / w_red)
+    else:
+        why["mass_rhb_msun"] = "no red-HB stars in the model at the fitted eta"
     return out, why
 
 
